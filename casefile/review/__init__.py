@@ -1,0 +1,1 @@
+"""Second reads: sampling plans, reader verdicts and agreement statistics over the ledger."""
