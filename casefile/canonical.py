@@ -1,0 +1,150 @@
+"""Canonical JSON by RFC 8785 (JSON Canonicalization Scheme): the bytes every hash is taken over."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Any
+
+from casefile.errors import ValidationError
+
+# RFC 8785 section 3.2.2.3 serialises numbers as IEEE 754 doubles; an integer that no double holds
+# exactly is refused rather than changed silently.
+MAX_SAFE_INTEGER = 2**53 - 1
+
+_ESCAPES = {'"': '\\"', "\\": "\\\\", "\b": "\\b", "\f": "\\f", "\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def _string(s: str) -> str:
+    out = ['"']
+    for ch in s:
+        if ch in _ESCAPES:
+            out.append(_ESCAPES[ch])
+        elif ch < " ":
+            out.append(f"\\u{ord(ch):04x}")
+        elif "\ud800" <= ch <= "\udfff":
+            raise ValidationError(f"string contains a lone surrogate U+{ord(ch):04X}, which is not valid UTF-8")
+        else:
+            out.append(ch)
+    out.append('"')
+    return "".join(out)
+
+
+def format_number(x: float | int) -> str:
+    """Format a number the way ECMAScript's Number.prototype.toString does (RFC 8785 section 3.2.2.3)."""
+    if isinstance(x, bool):
+        raise TypeError("booleans are not numbers here")
+    if isinstance(x, int):
+        if abs(x) <= MAX_SAFE_INTEGER:
+            return str(x)
+        if abs(x) < 2**1024 and int(float(x)) == x:
+            x = float(x)  # exactly an IEEE double (e.g. 2**53): format it as one
+        else:
+            raise ValidationError(f"integer {x} is not exactly representable as an IEEE 754 double")
+    if not math.isfinite(x):
+        raise ValidationError(f"number {x!r} is not allowed in canonical JSON (NaN and infinities are refused)")
+    if x == 0:
+        return "0"  # also for -0.0
+    sign = "-" if x < 0 else ""
+    # repr gives the shortest digit string that round-trips, which is what ECMAScript requires.
+    r = repr(abs(x))
+    mantissa, _, exp = r.partition("e")
+    exponent = int(exp) if exp else 0
+    int_part, _, frac_part = mantissa.partition(".")
+    digits = (int_part + frac_part).lstrip("0")
+    # position of the decimal point relative to the first significant digit
+    lead_zeros = len(int_part + frac_part) - len((int_part + frac_part).lstrip("0"))
+    n = len(int_part) - lead_zeros + exponent  # value = 0.d1d2... x 10^n
+    digits = digits.rstrip("0")
+    k = len(digits)
+    if k <= n <= 21:
+        s = digits + "0" * (n - k)
+    elif 0 < n <= 21:
+        s = digits[:n] + "." + digits[n:]
+    elif -6 < n <= 0:
+        s = "0." + "0" * (-n) + digits
+    else:
+        e = n - 1
+        e_str = ("+" if e >= 0 else "-") + str(abs(e))
+        s = digits[0] + ("." + digits[1:] if k > 1 else "") + "e" + e_str
+    return sign + s
+
+
+def _utf16_key(key: str) -> bytes:
+    return key.encode("utf-16-be", "surrogatepass")
+
+
+def _serialise(value: Any, out: list[str]) -> None:
+    if value is None:
+        out.append("null")
+    elif value is True:
+        out.append("true")
+    elif value is False:
+        out.append("false")
+    elif isinstance(value, str):
+        out.append(_string(value))
+    elif isinstance(value, int | float):
+        out.append(format_number(value))
+    elif isinstance(value, dict):
+        for k in value:
+            if not isinstance(k, str):
+                raise ValidationError(f"object key {k!r} is not a string")
+        out.append("{")
+        first = True
+        for k in sorted(value, key=_utf16_key):
+            if not first:
+                out.append(",")
+            first = False
+            out.append(_string(k))
+            out.append(":")
+            _serialise(value[k], out)
+        out.append("}")
+    elif isinstance(value, list | tuple):
+        out.append("[")
+        for i, item in enumerate(value):
+            if i:
+                out.append(",")
+            _serialise(item, out)
+        out.append("]")
+    else:
+        raise ValidationError(f"value of type {type(value).__name__} cannot be written as JSON")
+
+
+def canonical_bytes(value: Any) -> bytes:
+    """Return the RFC 8785 canonical form of ``value`` as UTF-8 bytes."""
+    out: list[str] = []
+    _serialise(value, out)
+    return "".join(out).encode("utf-8")
+
+
+def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    result: dict[str, Any] = {}
+    for k, v in pairs:
+        if k in result:
+            raise ValidationError(f"duplicate object key {k!r}")
+        result[k] = v
+    return result
+
+
+def _number(text: str) -> int | float:
+    """I-JSON (RFC 7493) reads numbers as doubles; integers stay ints while a double holds them exactly."""
+    n = int(text)
+    return n if abs(n) <= MAX_SAFE_INTEGER else float(text)
+
+
+def _refuse_constant(name: str) -> Any:
+    raise ValidationError(f"{name} is not allowed in canonical JSON")
+
+
+def parse(data: bytes | str) -> Any:
+    """Parse JSON strictly: duplicate keys, NaN and infinities are refused."""
+    if isinstance(data, bytes):
+        try:
+            data = data.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise ValidationError(f"JSON is not valid UTF-8: {exc}") from None
+    try:
+        return json.loads(data, object_pairs_hook=_no_duplicates, parse_constant=_refuse_constant,
+                          parse_int=_number)
+    except json.JSONDecodeError as exc:
+        raise ValidationError(f"not valid JSON: {exc}") from None

@@ -1,0 +1,25 @@
+"""Error types shared by every room; each carries a one-line message fit for a user."""
+
+
+class CasefileError(Exception):
+    """Base class: the message is one line that names the thing at fault and the problem."""
+
+
+class InputError(CasefileError):
+    """An input file cannot be used (unreadable, corrupt, unsupported, wrong shape)."""
+
+
+class ModelError(CasefileError):
+    """A model or its card cannot be loaded, or they disagree."""
+
+
+class ValidationError(CasefileError):
+    """A body does not satisfy the schema of its kind; nothing was written."""
+
+
+class LedgerError(CasefileError):
+    """The ledger cannot be opened or written as asked."""
+
+
+class ExplainError(CasefileError):
+    """An explanation method cannot run with the settings given."""

@@ -1,0 +1,347 @@
+"""The Ledger: open a store, append entries with their blobs in one transaction, and read them back."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from typing import Any
+
+from sqlalchemy import create_engine, event, func, insert, select
+from sqlalchemy.engine import Connection, Engine
+from sqlalchemy.exc import IntegrityError, OperationalError
+
+from casefile import schemas
+from casefile.canonical import canonical_bytes, parse
+from casefile.errors import LedgerError, ValidationError
+from casefile.ledger import tables as t
+from casefile.ledger.derive import derive, run_key
+
+READ_CHUNK = 2000
+
+
+def utc_now() -> str:
+    """The current UTC time as the ledger writes it: YYYY-MM-DDTHH:MM:SSZ."""
+    return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def entry_hash(prev_hash: str, kind: str, body: bytes) -> str:
+    """hash = SHA-256(prev_hash || 0x0a || kind || 0x0a || canonical body), as lowercase hex."""
+    return hashlib.sha256(prev_hash.encode("ascii") + b"\n" + kind.encode("utf-8") + b"\n" + body).hexdigest()
+
+
+@dataclass(frozen=True)
+class Entry:
+    seq: int
+    kind: str
+    body: dict[str, Any]
+    prev_hash: str
+    hash: str
+    raw: bytes = field(repr=False, default=b"")
+
+
+@dataclass
+class CaseHistory:
+    """A case as an auditor reads it: the original entry and everything appended about it since."""
+
+    entry: Entry
+    amendments: list[Entry]
+    reviews: list[Entry]
+
+    @property
+    def case_id(self) -> str:
+        return self.entry.body["case_id"]
+
+    def timeline(self) -> list[Entry]:
+        return sorted([self.entry, *self.amendments, *self.reviews], key=lambda e: e.seq)
+
+
+def _url(store: str) -> str:
+    if "://" in store:
+        return store
+    return "sqlite:///" + os.path.abspath(store)
+
+
+class Ledger:
+    """An append-only, hash-chained ledger in SQLite (or another SQLAlchemy database)."""
+
+    def __init__(self, url: str, *, create: bool = True) -> None:
+        self.url = _url(url)
+        self.is_sqlite = self.url.startswith("sqlite")
+        if not self.is_sqlite:
+            raise LedgerError(f"{url}: only SQLite ledgers are supported in this release")
+        path = self.url[len("sqlite:///"):]
+        if not create and not os.path.exists(path):
+            raise LedgerError(f"{path}: no ledger here (run `casefile init` first)")
+        parent = os.path.dirname(path)
+        if parent and not os.path.isdir(parent):
+            raise LedgerError(f"{path}: folder {parent} does not exist")
+        self.path = path
+        self.engine = self._make_engine()
+        try:
+            self._create()
+        except OperationalError as exc:
+            raise LedgerError(f"{path}: cannot open ledger: {exc.orig}") from None
+
+    def _make_engine(self) -> Engine:
+        engine = create_engine(self.url, connect_args={"timeout": 60})
+
+        @event.listens_for(engine, "connect")
+        def _on_connect(dbapi_conn: Any, _record: Any) -> None:
+            dbapi_conn.isolation_level = None  # we issue BEGIN ourselves
+            cur = dbapi_conn.cursor()
+            cur.execute("PRAGMA journal_mode=WAL")
+            # FULL: a committed entry survives power loss as well as a killed process.
+            cur.execute("PRAGMA synchronous=FULL")
+            cur.execute("PRAGMA foreign_keys=ON")
+            cur.close()
+
+        @event.listens_for(engine, "begin")
+        def _on_begin(conn: Connection) -> None:
+            # BEGIN IMMEDIATE takes the write lock up front, so two writers queue instead of racing
+            # for the chain head.
+            mode = "IMMEDIATE" if conn.get_execution_options().get("write") else "DEFERRED"
+            conn.exec_driver_sql(f"BEGIN {mode}")
+
+        return engine
+
+    def _create(self) -> None:
+        with self.engine.connect().execution_options(write=True) as conn, conn.begin():
+            t.metadata.create_all(conn)
+            for ddl in t.SQLITE_TRIGGERS:
+                conn.exec_driver_sql(ddl)
+
+    def verify(self, seal: str | os.PathLike[str] | dict[str, Any] | None = None,
+               public_key: str | os.PathLike[str] | None = None) -> Any:
+        """Check the whole ledger (see casefile.ledger.verify); optionally against an exported seal file."""
+        from casefile.ledger.seal import load_public_key, read_seal_file
+        from casefile.ledger.verify import verify
+
+        seal_data = seal if isinstance(seal, dict) or seal is None else read_seal_file(seal)
+        trusted = load_public_key(public_key) if public_key else None
+        return verify(self, seal_data, trusted)
+
+    def seal(self, key_path: str | os.PathLike[str] | None = None, note: str | None = None) -> Entry:
+        """Append a seal entry over every entry so far (signed when a key file is given)."""
+        from casefile.ledger.seal import seal
+
+        return seal(self, key_path, note)
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def __enter__(self) -> Ledger:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ------------------------------------------------------------------ writing
+    def append(self, kind: str, body: dict[str, Any], blobs: Iterable[bytes] | None = None) -> Entry:
+        """Validate ``body`` against its kind's schema, then append it and its blobs in one transaction."""
+        return self.append_many([(kind, body, blobs)])[0]
+
+    def append_many(self, items: Iterable[tuple[str, dict[str, Any], Iterable[bytes] | None]]) -> list[Entry]:
+        """Append several entries in one transaction: all of them are recorded, or none."""
+        prepared = [self._prepare(kind, body, blob_iter) for kind, body, blob_iter in items]
+        if not prepared:
+            return []
+        return self._transaction(lambda conn: self._write(conn, prepared))
+
+    def _transaction(self, work: Any) -> Any:
+        try:
+            with self.engine.connect().execution_options(write=True) as conn, conn.begin():
+                return work(conn)
+        except IntegrityError as exc:
+            msg = str(exc.orig)
+            if "cases.run_key" in msg or "cases.case_id" in msg:
+                raise ValidationError("case refused: this input was already recorded with the same model "
+                                      "and settings") from None
+            raise LedgerError(f"{self.path}: append refused: {msg}") from None
+        except OperationalError as exc:
+            raise LedgerError(f"{self.path}: append failed: {exc.orig}") from None
+
+    @staticmethod
+    def _prepare(kind: str, body: dict[str, Any], blob_iter: Iterable[bytes] | None) -> tuple:
+        schemas.validate(kind, body)
+        raw = canonical_bytes(body)
+        blob_list = list(blob_iter or [])
+        digests = [hashlib.sha256(b).hexdigest() for b in blob_list]
+        clean = parse(raw)
+        referenced = referenced_blobs(clean)
+        stray = sorted(set(digests) - set(referenced))
+        if stray:
+            raise ValidationError(f"{kind} body refused: blob {stray[0][:12]}… is not referred to by the body")
+        return (kind, raw, clean, blob_list, digests, referenced)
+
+    def _write(self, conn: Connection, prepared: list[tuple]) -> list[Entry]:
+        """Append prepared entries inside the caller's write transaction."""
+        head = conn.execute(select(t.entries.c.seq, t.entries.c.hash)
+                            .order_by(t.entries.c.seq.desc()).limit(1)).first()
+        seq, prev = (head[0], head[1]) if head else (0, t.GENESIS_HASH)
+        out = []
+        for kind, raw, clean, blob_list, digests, referenced in prepared:
+            self._require_blobs(conn, set(referenced) - set(digests), kind)
+            seq += 1
+            h = entry_hash(prev, kind, raw)
+            self._store_blobs(conn, blob_list, digests)
+            conn.execute(insert(t.entries).values(seq=seq, kind=kind, body=raw.decode("utf-8"),
+                                                  prev_hash=prev, hash=h))
+            self._insert_derived(conn, derive(seq, kind, clean, referenced))
+            out.append(Entry(seq, kind, clean, prev, h, raw))
+            prev = h
+        return out
+
+    @staticmethod
+    def _store_blobs(conn: Connection, blob_list: list[bytes], digests: list[str]) -> None:
+        for data, digest in zip(blob_list, digests, strict=True):
+            conn.exec_driver_sql("INSERT OR IGNORE INTO blobs (digest, size, data) VALUES (?, ?, ?)",
+                                 (digest, len(data), data))
+
+    @staticmethod
+    def _require_blobs(conn: Connection, digests: set[str], kind: str) -> None:
+        for d in sorted(digests):
+            if conn.execute(select(t.blobs.c.digest).where(t.blobs.c.digest == d)).first() is None:
+                raise ValidationError(f"{kind} body refused: it refers to blob {d[:12]}… which is neither "
+                                      "given nor stored")
+
+    @staticmethod
+    def _insert_derived(conn: Connection, rows: list[tuple[str, dict[str, Any]]]) -> None:
+        by_name = {tb.name: tb for tb in t.DERIVED_TABLES}
+        for name, row in rows:
+            conn.execute(insert(by_name[name]).values(**row))
+
+    def rebuild_derived(self) -> int:
+        """Recompute every query table from the entries (they are derived and may be rebuilt)."""
+        with self.engine.connect().execution_options(write=True) as conn, conn.begin():
+            for tb in t.DERIVED_TABLES:
+                conn.execute(tb.delete())
+            n = 0
+            for e in self.entries(conn=conn):
+                self._insert_derived(conn, derive(e.seq, e.kind, e.body, referenced_blobs(e.body)))
+                n += 1
+        return n
+
+    # ------------------------------------------------------------------ reading
+    def head(self) -> tuple[int, str]:
+        """(seq, hash) of the last entry; (0, genesis hash) for an empty ledger."""
+        with self.engine.connect() as conn:
+            row = conn.execute(select(t.entries.c.seq, t.entries.c.hash)
+                               .order_by(t.entries.c.seq.desc()).limit(1)).first()
+        return (row[0], row[1]) if row else (0, t.GENESIS_HASH)
+
+    def count(self, kind: str | None = None) -> int:
+        q = select(func.count()).select_from(t.entries)
+        if kind:
+            q = q.where(t.entries.c.kind == kind)
+        with self.engine.connect() as conn:
+            return int(conn.execute(q).scalar_one())
+
+    def entries(self, kind: str | None = None, start: int = 1, *, conn: Connection | None = None,
+                stop: int | None = None) -> Iterator[Entry]:
+        """Stream entries in seq order, a chunk at a time (memory stays flat on any ledger size)."""
+        pos = start
+        while True:
+            q = select(t.entries).where(t.entries.c.seq >= pos).order_by(t.entries.c.seq).limit(READ_CHUNK)
+            if kind:
+                q = q.where(t.entries.c.kind == kind)
+            if stop is not None:
+                q = q.where(t.entries.c.seq <= stop)
+            if conn is None:
+                with self.engine.connect() as c:
+                    rows = c.execute(q).all()
+            else:
+                rows = conn.execute(q).all()
+            if not rows:
+                return
+            for r in rows:
+                raw = r.body.encode("utf-8")
+                yield Entry(r.seq, r.kind, parse(raw), r.prev_hash, r.hash, raw)
+            pos = rows[-1].seq + 1
+
+    def get(self, seq: int) -> Entry:
+        with self.engine.connect() as conn:
+            r = conn.execute(select(t.entries).where(t.entries.c.seq == seq)).first()
+        if r is None:
+            raise LedgerError(f"{self.path}: no entry with seq {seq}")
+        raw = r.body.encode("utf-8")
+        return Entry(r.seq, r.kind, parse(raw), r.prev_hash, r.hash, raw)
+
+    def blob(self, digest: str) -> bytes:
+        with self.engine.connect() as conn:
+            r = conn.execute(select(t.blobs.c.data).where(t.blobs.c.digest == digest)).first()
+        if r is None:
+            raise LedgerError(f"{self.path}: no blob {digest}")
+        return bytes(r[0])
+
+    def find_case_id(self, file_sha256: str, frame: int | None, model_digest: str,
+                     settings_digest: str) -> str | None:
+        """The case already recorded for this input, model and settings, if any."""
+        key = run_key(file_sha256, frame, model_digest, settings_digest)
+        with self.engine.connect() as conn:
+            r = conn.execute(select(t.cases.c.case_id).where(t.cases.c.run_key == key)).first()
+        return r[0] if r else None
+
+    def case(self, case_id: str) -> CaseHistory:
+        """The case entry with its amendments and reviews, in seq order."""
+        with self.engine.connect() as conn:
+            r = conn.execute(select(t.cases.c.seq).where(t.cases.c.case_id == case_id)).first()
+            if r is None:
+                raise LedgerError(f"{self.path}: no case {case_id!r}")
+            case_seq = r[0]
+            amend = [x[0] for x in conn.execute(select(t.amendments.c.seq).where(
+                (t.amendments.c.case_id == case_id) | (t.amendments.c.amends_seq == case_seq))
+                .order_by(t.amendments.c.seq))]
+            revs = [x[0] for x in conn.execute(select(t.reviews.c.seq).where(t.reviews.c.case_id == case_id)
+                                               .order_by(t.reviews.c.seq))]
+        return CaseHistory(self.get(case_seq), [self.get(s) for s in amend], [self.get(s) for s in revs])
+
+    def cases(self, model: str | None = None, label: str | None = None, status: str | None = None,
+              since: str | None = None, until: str | None = None) -> list[dict[str, Any]]:
+        """Rows of the cases query table, filtered; ``model`` matches a name, name@version or digest prefix."""
+        c = t.cases.c
+        q = select(t.cases).order_by(c.seq)
+        if model:
+            name, _, version = model.partition("@")
+            cond = (c.model_name == name) if not version else ((c.model_name == name) & (c.model_version == version))
+            if len(model) >= 8 and all(ch in "0123456789abcdef" for ch in model):
+                cond = cond | c.model_digest.startswith(model)
+            q = q.where(cond)
+        if label:
+            q = q.where(c.label == label)
+        if status:
+            q = q.where(c.status == status)
+        if since:
+            q = q.where(c.recorded_at >= since)
+        if until:
+            q = q.where(c.recorded_at <= until)
+        with self.engine.connect() as conn:
+            return [dict(r._mapping) for r in conn.execute(q)]
+
+    def rows(self, table: str) -> list[dict[str, Any]]:
+        """All rows of one query table (``reviews``, ``draws``, ``failures`` …) in seq order."""
+        tb = {x.name: x for x in t.DERIVED_TABLES}.get(table)
+        if tb is None:
+            raise LedgerError(f"no query table {table!r}")
+        with self.engine.connect() as conn:
+            return [dict(r._mapping) for r in conn.execute(select(tb).order_by(tb.c.seq))]
+
+
+def referenced_blobs(body: Any) -> list[str]:
+    """Digests named in fields ending in _blob (or in lists under a key ending in _blobs)."""
+    found: list[str] = []
+
+    def walk(x: Any, key: str = "") -> None:
+        if isinstance(x, dict):
+            for k, v in x.items():
+                walk(v, k)
+        elif isinstance(x, list):
+            for v in x:
+                walk(v, key)
+        elif isinstance(x, str) and (key.endswith("_blob") or key.endswith("_blobs")) and len(x) == 64:
+            found.append(x)
+
+    walk(body)
+    return found

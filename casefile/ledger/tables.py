@@ -1,0 +1,131 @@
+"""The ledger's tables and the database triggers that make entries and blobs append-only."""
+
+from __future__ import annotations
+
+from sqlalchemy import Column, Float, ForeignKey, Index, Integer, LargeBinary, MetaData, String, Table, Text
+
+metadata = MetaData()
+
+GENESIS_HASH = "0" * 64
+
+entries = Table(
+    "entries",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("kind", String(32), nullable=False),
+    Column("body", Text, nullable=False),
+    Column("prev_hash", String(64), nullable=False),
+    Column("hash", String(64), nullable=False, unique=True),
+)
+
+blobs = Table(
+    "blobs",
+    metadata,
+    Column("digest", String(64), primary_key=True),
+    Column("size", Integer, nullable=False),
+    Column("data", LargeBinary, nullable=False),
+)
+
+# Which blobs an entry brought with it (derived: rebuilt from appends, checked by verify).
+entry_blobs = Table(
+    "entry_blobs",
+    metadata,
+    Column("seq", Integer, ForeignKey("entries.seq"), nullable=False),
+    Column("digest", String(64), nullable=False),
+    Index("ix_entry_blobs_seq", "seq"),
+)
+
+# ---- derived query tables: one row per producing entry, keyed by that entry's seq ----
+cases = Table(
+    "cases",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("case_id", String(64), nullable=False, unique=True),
+    Column("recorded_at", String(32), nullable=False),
+    Column("model_name", Text, nullable=False),
+    Column("model_version", Text, nullable=False),
+    Column("model_digest", String(64), nullable=False),
+    Column("label", Text, nullable=False),
+    Column("confidence", Float),
+    Column("status", String(16), nullable=False),
+    Column("file_name", Text, nullable=False),
+    Column("file_sha256", String(64), nullable=False),
+    Column("run_key", String(64), nullable=False, unique=True),
+    Index("ix_cases_model", "model_name", "model_version"),
+    Index("ix_cases_label", "label"),
+    Index("ix_cases_status", "status"),
+    Index("ix_cases_recorded_at", "recorded_at"),
+)
+
+failures = Table(
+    "failures",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("attempted_at", String(32), nullable=False),
+    Column("file_name", Text, nullable=False),
+    Column("file_sha256", String(64)),
+    Column("reason", Text, nullable=False),
+)
+
+amendments = Table(
+    "amendments",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("amends_seq", Integer, nullable=False),
+    Column("case_id", String(64)),
+    Index("ix_amendments_amends", "amends_seq"),
+)
+
+reviews = Table(
+    "reviews",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("case_id", String(64), nullable=False),
+    Column("reader", Text, nullable=False),
+    Column("verdict", String(16), nullable=False),
+    Column("label", Text),
+    Column("amends_seq", Integer),
+    Column("draw_id", String(64)),
+    Index("ix_reviews_case", "case_id"),
+)
+
+draws = Table(
+    "draws",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("draw_id", String(64), nullable=False, unique=True),
+    Column("plan", String(16), nullable=False),
+    Column("population_size", Integer, nullable=False),
+    Column("sample_size", Integer, nullable=False),
+)
+
+seals = Table(
+    "seals",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("tree_size", Integer, nullable=False),
+    Column("merkle_root", String(64), nullable=False),
+    Column("signed", Integer, nullable=False),
+)
+
+DERIVED_TABLES = (entry_blobs, cases, failures, amendments, reviews, draws, seals)
+
+# Append-only, enforced by SQLite itself: an UPDATE or DELETE on entries or blobs aborts, and an
+# INSERT must extend the chain at its head (next seq, prev_hash = hash of the head entry).
+SQLITE_TRIGGERS = [
+    """CREATE TRIGGER IF NOT EXISTS entries_no_update BEFORE UPDATE ON entries
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: entries cannot be changed'); END""",
+    """CREATE TRIGGER IF NOT EXISTS entries_no_delete BEFORE DELETE ON entries
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: entries cannot be deleted'); END""",
+    """CREATE TRIGGER IF NOT EXISTS blobs_no_update BEFORE UPDATE ON blobs
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: blobs cannot be changed'); END""",
+    """CREATE TRIGGER IF NOT EXISTS blobs_no_delete BEFORE DELETE ON blobs
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: blobs cannot be deleted'); END""",
+    f"""CREATE TRIGGER IF NOT EXISTS entries_extend_head BEFORE INSERT ON entries
+       WHEN NEW.seq != COALESCE((SELECT MAX(seq) FROM entries), 0) + 1
+         OR NEW.prev_hash != COALESCE((SELECT hash FROM entries ORDER BY seq DESC LIMIT 1), '{GENESIS_HASH}')
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: a new entry must extend the head'); END""",
+]
+
+TRIGGER_NAMES = ["entries_no_update", "entries_no_delete", "blobs_no_update", "blobs_no_delete",
+                 "entries_extend_head"]
