@@ -1,0 +1,92 @@
+"""Shared helpers for the explanation methods: input checks, target choice, and leaving the model as found."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+import numpy as np
+import torch
+from torch import nn
+
+from casefile.errors import ExplainError
+
+
+def check_input(x: object) -> torch.Tensor:
+    """Return ``x`` if it is a floating Tensor[1, C, H, W]; otherwise raise a one-line ExplainError."""
+    if not isinstance(x, torch.Tensor):
+        raise ExplainError(f"input: expected a torch.Tensor [1, C, H, W], got {type(x).__name__}")
+    if x.dim() != 4 or x.shape[0] != 1:
+        raise ExplainError(f"input: expected shape [1, C, H, W], got {list(x.shape)}")
+    if not x.is_floating_point():
+        raise ExplainError(f"input: expected a floating-point tensor, got {x.dtype}")
+    if x.shape[2] < 1 or x.shape[3] < 1:
+        raise ExplainError(f"input: empty image of shape {list(x.shape)}")
+    return x
+
+
+def check_logits(out: object) -> torch.Tensor:
+    """Return the model output as logits [1, K] (K >= 2); raise ExplainError for any other shape."""
+    if not isinstance(out, torch.Tensor):
+        raise ExplainError(f"model output: expected a Tensor of class logits, got {type(out).__name__}")
+    if out.dim() != 2 or out.shape[0] != 1 or out.shape[1] < 2:
+        raise ExplainError(
+            f"model output: expected class logits of shape [1, K] with K >= 2, got {list(out.shape)}"
+        )
+    return out
+
+
+def pick_target(logits: torch.Tensor, target: int | None) -> int:
+    """The class to explain: ``target`` if given (checked against K), else the predicted class."""
+    k = int(logits.shape[1])
+    if target is None:
+        row = torch.nan_to_num(logits[0].detach(), nan=-torch.inf)
+        return int(torch.argmax(row).item())
+    if isinstance(target, bool) or not isinstance(target, (int, np.integer)):
+        raise ExplainError(f"target: expected a class index, got {target!r}")
+    if not 0 <= int(target) < k:
+        raise ExplainError(f"target: class index {int(target)} is outside 0..{k - 1}")
+    return int(target)
+
+
+def get_layer(module: nn.Module, layer: str) -> nn.Module:
+    """The submodule named ``layer`` (as in ``module.named_modules()``), or a one-line ExplainError."""
+    modules = dict(module.named_modules())
+    if not isinstance(layer, str) or layer not in modules or layer == "":
+        names = [n for n in modules if n]
+        shown = ", ".join(names[:12]) + (" ..." if len(names) > 12 else "")
+        raise ExplainError(f"layer {layer!r}: not found in the model; layers are: {shown}")
+    return modules[layer]
+
+
+@contextmanager
+def model_left_as_found(module: nn.Module) -> Iterator[nn.Module]:
+    """Run the body with every submodule in eval mode; restore each module's mode and each
+    parameter's ``requires_grad`` flag afterwards, even when the body raises.
+
+    Eval mode matters: in train mode BatchNorm would use the statistics of a one-image batch and
+    overwrite its running statistics (buffers), changing the model. The methods take gradients with
+    ``torch.autograd.grad``, so parameter ``.grad`` fields are never written.
+    """
+    modes = [(m, m.training) for m in module.modules()]
+    flags = [(p, p.requires_grad) for p in module.parameters()]
+    try:
+        module.eval()
+        yield module
+    finally:
+        for m, mode in modes:
+            m.training = mode
+        for p, flag in flags:
+            if p.requires_grad != flag:
+                p.requires_grad_(flag)
+
+
+def forward_logits(module: nn.Module, x: torch.Tensor) -> torch.Tensor:
+    """One forward pass returning checked logits [1, K] (no graph kept)."""
+    with torch.no_grad():
+        return check_logits(module(x)).detach()
+
+
+def to_map(t: torch.Tensor) -> np.ndarray:
+    """A 2-D tensor as a contiguous float32 numpy array."""
+    return np.ascontiguousarray(t.detach().to(torch.float32).cpu().numpy())

@@ -1,0 +1,258 @@
+"""One call that scores an input, draws the explanation maps and runs the sanity checks → Explanation.
+
+Default settings (:data:`DEFAULT_SETTINGS`) and why:
+
+- ``occlusion_patch`` 32, ``occlusion_stride`` 16: for inputs of about 224 px a 32 px patch covers a
+  region the size of a typical finding while leaving 169 positions; a stride of half the patch lets
+  every interior pixel be covered by four patches so the map is smooth (common practice since
+  Zeiler & Fergus 2014).
+- ``occlusion_fill`` 0.0: after the usual mean/std normalisation 0 is the training mean, i.e. "no
+  information" rather than black or white; "mean" (per-channel mean of this image) and "blur" (a
+  Gaussian-blurred copy, sigma = patch / 4 unless ``occlusion_blur_sigma`` is set) are offered.
+- ``occlusion_output`` "probability": a drop in probability is what a reader understands; "logit"
+  does not saturate and is offered. ``occlusion_batch_size`` 64 bounds memory on a workstation CPU.
+- ``randomisation_method``, ``deletion_method``, ``focus_method`` "gradcam": the map the checks are
+  run on (falls back to the first method computed when it is not among ``methods``).
+- ``deletion_fill`` "same": cover pixels exactly as occlusion does, so the two tests agree on what
+  "removed" means.
+- Check thresholds: see :mod:`casefile.explain.checks` (``CHECK_DEFAULTS``), where each is justified.
+"""
+
+from __future__ import annotations
+
+import math
+import platform
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import scipy
+import torch
+from torch import nn
+
+from casefile.errors import ExplainError
+
+from . import checks as ck
+from ._common import check_input, forward_logits, model_left_as_found, pick_target
+from .gradcam import gradcam, gradient
+from .occlusion import occlusion
+
+METHODS = ("gradcam", "occlusion", "gradient")
+
+DEFAULT_SETTINGS: dict[str, Any] = {
+    "occlusion_patch": 32,
+    "occlusion_stride": 16,
+    "occlusion_fill": 0.0,
+    "occlusion_output": "probability",
+    "occlusion_batch_size": 64,
+    "occlusion_blur_sigma": None,
+    "randomisation_method": "gradcam",
+    "deletion_method": "gradcam",
+    "deletion_fill": "same",
+    "focus_method": "gradcam",
+    **ck.CHECK_DEFAULTS,
+}
+
+_RANK = {"fail": 3, "warn": 2, "pass": 1}
+
+
+def _clean(value: Any) -> Any:
+    """JSON-ready copy: numpy scalars to Python, non-finite floats to None, tuples to lists."""
+    if isinstance(value, Mapping):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(float(value)) else None
+    return value
+
+
+def worst(outcomes: Sequence[str]) -> str:
+    """fail > warn > pass; not-run counts only when every check was not run."""
+    ranked = [o for o in outcomes if o in _RANK]
+    return max(ranked, key=_RANK.__getitem__) if ranked else "not-run"
+
+
+@dataclass
+class Explanation:
+    """Scores, maps and check outcomes for one input."""
+
+    scores: dict[str, float]
+    label_index: int
+    label: str
+    confidence: float
+    logits: list[float]
+    maps: dict[str, np.ndarray]
+    map_params: dict[str, dict[str, Any]]
+    checks: list[ck.Check]
+    settings: dict[str, Any]
+    versions: dict[str, str]
+    status: str
+    target_source: str = "predicted"
+    notes: list[str] = field(default_factory=list)
+
+    def map_bytes(self, method: str) -> bytes:
+        """The raw map of ``method`` as float32 little-endian bytes (row-major [H, W])."""
+        return np.ascontiguousarray(self.maps[method], dtype="<f4").tobytes()
+
+    def to_record(self) -> dict[str, Any]:
+        """Plain JSON-ready data without the arrays; every float finite (non-finite ones become None)."""
+        maps = []
+        for method, m in self.maps.items():
+            finite = bool(np.all(np.isfinite(m)))
+            maps.append(
+                {
+                    "method": method,
+                    "params": self.map_params.get(method, {}),
+                    "shape": [int(m.shape[0]), int(m.shape[1])],
+                    "min": float(np.min(m)) if finite else None,
+                    "max": float(np.max(m)) if finite else None,
+                }
+            )
+        return _clean(
+            {
+                "label": self.label,
+                "label_index": self.label_index,
+                "confidence": self.confidence,
+                "scores": self.scores,
+                "logits": self.logits,
+                "target_source": self.target_source,
+                "maps": maps,
+                "checks": [c.to_dict() for c in self.checks],
+                "settings": self.settings,
+                "versions": self.versions,
+                "status": self.status,
+                "notes": self.notes,
+            }
+        )
+
+
+def full_settings(settings: Mapping[str, Any] | None) -> dict[str, Any]:
+    """DEFAULT_SETTINGS overlaid with ``settings``; an unknown key is a one-line ExplainError."""
+    merged = dict(DEFAULT_SETTINGS)
+    for key, value in (settings or {}).items():
+        if key not in DEFAULT_SETTINGS:
+            raise ExplainError(f"settings: unknown key {key!r}; known keys: {', '.join(DEFAULT_SETTINGS)}")
+        merged[key] = value
+    return merged
+
+
+def _method_fns(s: dict[str, Any], layer: str | None) -> dict[str, Any]:
+    occ = {
+        "patch": s["occlusion_patch"],
+        "stride": s["occlusion_stride"],
+        "fill": s["occlusion_fill"],
+        "batch_size": s["occlusion_batch_size"],
+        "blur_sigma": s["occlusion_blur_sigma"],
+    }
+    return {
+        "gradcam": lambda m, x, t: gradcam(m, x, t, layer=layer),
+        "occlusion": lambda m, x, t: occlusion(m, x, t, output=s["occlusion_output"], **occ),
+        "gradient": lambda m, x, t: gradient(m, x, t),
+        "occlusion_kwargs": occ,
+    }
+
+
+def run(
+    module: nn.Module,
+    x: torch.Tensor,
+    *,
+    target: int | None = None,
+    labels: Sequence[str],
+    layer: str | None,
+    methods: Sequence[str] = METHODS,
+    settings: Mapping[str, Any] | None = None,
+    roi: np.ndarray | None = None,
+) -> Explanation:
+    """Score ``x`` with ``module``, compute the maps in ``methods`` and run every check."""
+    x = check_input(x)
+    s = full_settings(settings)
+    methods = list(dict.fromkeys(methods))
+    unknown = [m for m in methods if m not in METHODS]
+    if unknown or not methods:
+        raise ExplainError(f"methods: {unknown or 'none'} not among {', '.join(METHODS)}")
+    if "gradcam" in methods and not layer:
+        raise ExplainError("layer: Grad-CAM needs a layer name (the model card's default layer or --layer)")
+    if roi is not None and np.asarray(roi).shape != tuple(x.shape[2:]):
+        raise ExplainError(
+            f"roi mask: shape {np.asarray(roi).shape} does not match the model input {tuple(x.shape[2:])}"
+        )
+    with model_left_as_found(module):
+        logits = forward_logits(module, x)
+    if len(labels) != logits.shape[1]:
+        raise ExplainError(
+            f"labels: {len(labels)} labels given but the model outputs {logits.shape[1]} classes"
+        )
+    t = pick_target(logits, target)
+    probs = torch.softmax(logits[0].to(torch.float64), dim=0).numpy()
+    fns = _method_fns(s, layer)
+    maps: dict[str, np.ndarray] = {}
+    params: dict[str, dict[str, Any]] = {}
+    occ_result = None
+    for method in methods:
+        if method == "occlusion":
+            occ_result = occlusion(
+                module, x, t, output=s["occlusion_output"], return_all=True, **fns["occlusion_kwargs"]
+            )
+            maps[method] = getattr(occ_result, s["occlusion_output"])
+            params[method] = {
+                **fns["occlusion_kwargs"],
+                "output": s["occlusion_output"],
+                "patch_used": list(occ_result.patch),
+                "grid": [len(occ_result.rows), len(occ_result.cols)],
+            }
+        else:
+            maps[method] = fns[method](module, x, t)
+            params[method] = (
+                {"layer": layer}
+                if method == "gradcam"
+                else {"value": "max over channels of |d logit / d pixel|"}
+            )
+
+    def chosen(key: str) -> str:
+        return s[key] if s[key] in maps else methods[0]
+
+    found = [
+        ck.numerical({"logits": logits, **{f"map {k}": v for k, v in maps.items()}}),
+        ck.confidence(probs, t, settings=s),
+    ]
+    rnd = chosen("randomisation_method")
+    randomised = ck.randomisation(module, x, t, fns[rnd], original=maps[rnd], settings=s)
+    randomised.meaning = f"{rnd}: {randomised.meaning}"
+    found.append(randomised)
+    if "gradcam" in maps and occ_result is not None:
+        grid = (len(occ_result.rows), len(occ_result.cols))
+        # The logit-drop map: probability drops vanish on a confident model and would rank noise.
+        found.append(ck.method_agreement(maps["gradcam"], occ_result.logit, grid=grid, settings=s))
+    else:
+        found.append(
+            ck._not_run("method_agreement", s["agreement_pass"], "needs both Grad-CAM and occlusion maps")
+        )
+    fill = s["occlusion_fill"] if s["deletion_fill"] == "same" else s["deletion_fill"]
+    found.append(ck.deletion(module, x, t, maps[chosen("deletion_method")], fill=fill, settings=s))
+    found.append(ck.region_focus(maps[chosen("focus_method")], roi, settings=s))
+    logit_list = [float(v) for v in logits[0].tolist()]
+    return Explanation(
+        scores={str(lab): float(p) for lab, p in zip(labels, probs, strict=True)},
+        label_index=t,
+        label=str(labels[t]),
+        confidence=float(probs[t]),
+        logits=logit_list,
+        maps=maps,
+        map_params=params,
+        checks=found,
+        settings=s,
+        versions={
+            "torch": torch.__version__,
+            "numpy": np.__version__,
+            "scipy": scipy.__version__,
+            "python": platform.python_version(),
+        },
+        status=worst([c.outcome for c in found]),
+        target_source="predicted" if target is None else "given",
+    )
