@@ -1,0 +1,340 @@
+"""The PDF case sheet: identity, result, pictures, checks, reviews and cautions for one recorded case."""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Callable, Sequence
+from datetime import UTC, datetime
+from typing import Any
+
+from reportlab import rl_config
+from reportlab.lib.pagesizes import A4, LETTER
+from reportlab.pdfgen.canvas import Canvas
+
+from .. import __version__
+from ..errors import InputError
+from .cautions import CAUTION_TITLE, CAUTIONS
+from .draw import (
+    BAND,
+    GREY,
+    INK,
+    OUTCOME_RANK,
+    OUTCOME_WORDS,
+    RULE,
+    Block,
+    Column,
+    Table,
+    outcome_mark,
+    paginate,
+    text_line,
+    wrap,
+)
+from .fonts import FontSet, clean, font_set
+from .pictures import picture_blocks
+
+PAGE_SIZES = {"A4": A4, "letter": LETTER}
+MARGIN = 36.0
+FOOTER_H = 22.0
+NOTE_LIMIT = 1500  # characters of a review note printed on the sheet; the ledger keeps the whole note
+
+
+def _fmt_num(v: Any) -> str:
+    if v is None:
+        return "—"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, int | float):
+        return f"{v:.3g}" if abs(v) < 1000 else f"{v:.0f}"
+    return str(v)
+
+
+def _fmt_time(t: Any) -> str:
+    s = str(t or "—")
+    return s.replace("T", " ").replace("Z", " UTC") if s.endswith("Z") else s
+
+
+def _short(d: Any) -> str:
+    return str(d)[:12] if d else "—"
+
+
+def _pdf_date(fixed_time: datetime | str | None, recorded_at: str | None) -> str:
+    """The PDF date string (D:YYYYMMDDHHmmSS+00'00') of the declared time stamp."""
+    t = fixed_time if fixed_time is not None else recorded_at
+    if isinstance(t, str):
+        try:
+            t = datetime.fromisoformat(t.replace("Z", "+00:00"))
+        except ValueError as e:
+            raise InputError(f"sheet: time stamp {t!r} is not an ISO 8601 time") from e
+    if t is None:
+        t = datetime(2000, 1, 1, tzinfo=UTC)
+    if t.tzinfo is None:
+        t = t.replace(tzinfo=UTC)
+    t = t.astimezone(UTC)
+    return t.strftime("D:%Y%m%d%H%M%S+00'00'")
+
+
+def _kv_block(fonts: FontSet, title: str, rows: Sequence[tuple[str, str, str]], width: float) -> tuple[
+        float, Callable[[Canvas, float, float], None]]:
+    """A titled list of label/value pairs; the third item names the value font."""
+    label_w = 84.0
+    size, leading = 7.5, 9.6
+    wrapped = [(k, wrap(clean(v, getattr(fonts, f)), getattr(fonts, f), size, width - label_w), f)
+               for k, v, f in rows]
+    h = 14 + sum(len(ls) for _, ls, _ in wrapped) * leading
+
+    def draw(c: Canvas, x: float, y: float) -> None:
+        text_line(c, x, y - 9, title.upper(), fonts.bold, 7.5, GREY)
+        yy = y - 14 - size
+        for k, lines, f in wrapped:
+            text_line(c, x, yy, k, fonts.regular, size, GREY)
+            for line in lines:
+                text_line(c, x + label_w, yy, line, getattr(fonts, f), size)
+                yy -= leading
+
+    return h, draw
+
+
+def _identity_result(case: dict, fonts: FontSet, width: float) -> Block:
+    inp, model, res = case.get("input") or {}, case.get("model") or {}, case.get("result") or {}
+    sw = case.get("software") or {}
+    left_w = width * 0.56
+    ident = [
+        ("Case", str(case.get("case_id", "—")), "mono"),
+        ("Recorded", _fmt_time(case.get("recorded_at")), "regular"),
+        ("Model", f"{model.get('name', '—')}  version {model.get('version', '—')}", "regular"),
+        ("Model digest", _short(model.get("digest")), "mono"),
+        ("Input digest", _short(inp.get("file_sha256")), "mono"),
+        ("Input", f"{inp.get('file_name', '—')}  ({inp.get('modality', '—')}, "
+                  f"{inp.get('width', '?')}×{inp.get('height', '?')} px)", "regular"),
+        ("Pseudonym", str(inp.get("pseudonym") or "none (not a patient study)"), "mono"),
+        ("Software", f"casefile {sw.get('casefile', '—')}", "regular"),
+    ]
+    h1, d1 = _kv_block(fonts, "Identity", ident, left_w - 12)
+    top = list(res.get("top") or [])[:5]
+    h2 = 14 + 40 + 11 * len(top) + 8
+
+    def draw_result(c: Canvas, x: float, y: float) -> None:
+        w = width - left_w
+        text_line(c, x, y - 9, "RESULT", fonts.bold, 7.5, GREY)
+        text_line(c, x, y - 34, str(res.get("label", "—")), fonts.bold, 20)
+        conf = res.get("confidence")
+        text_line(c, x, y - 47, f"model confidence {conf:.1%}" if isinstance(conf, int | float)
+                  else "model confidence —", fonts.regular, 8, GREY)
+        yy = y - 62
+        bar_x, bar_w = x + 88, w - 88 - 40
+        for item in top:
+            p = float(item.get("p") or 0.0)
+            text_line(c, x, yy, str(item.get("label", "?"))[:22], fonts.regular, 7.5)
+            c.setFillColorRGB(*BAND)
+            c.rect(bar_x, yy - 1, bar_w, 7, stroke=0, fill=1)
+            c.setFillColorRGB(*GREY)
+            c.rect(bar_x, yy - 1, bar_w * min(max(p, 0.0), 1.0), 7, stroke=0, fill=1)
+            text_line(c, bar_x + bar_w + 4, yy, f"{p:.3f}", fonts.mono, 7.5)
+            yy -= 11
+
+    def draw(c: Canvas, x: float, y: float) -> None:
+        d1(c, x, y)
+        c.setStrokeColorRGB(*RULE)
+        c.setLineWidth(0.5)
+        c.line(x + left_w - 6, y - 4, x + left_w - 6, y - max(h1, h2) + 4)
+        draw_result(c, x + left_w + 6, y)
+
+    return Block(max(h1, h2) + 8, draw)
+
+
+def _heading(fonts: FontSet, title: str, note: str = "") -> Block:
+    def draw(c: Canvas, x: float, y: float) -> None:
+        text_line(c, x, y - 12, title, fonts.bold, 10.5)
+        if note:
+            text_line(c, x + c.stringWidth(title, fonts.bold, 10.5) + 8, y - 12, note, fonts.regular, 7.5, GREY)
+
+    return Block(18, draw, keep_with_next=True)
+
+
+def _outcome_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str], None]:
+    def draw(c: Canvas, x: float, y: float, w: float, outcome: str) -> None:
+        outcome_mark(c, x + 9, y - 4.2, outcome)
+        text_line(c, x + 18, y - 7, OUTCOME_WORDS.get(outcome, str(outcome)), fonts.bold, 7.5)
+
+    return draw
+
+
+def _check_blocks(case: dict, fonts: FontSet, width: float) -> tuple[list[Block], Table]:
+    cols = [Column("OUTCOME", 58, "bold"), Column("CHECK", 100, "regular"), Column("VALUE", 44, "mono", "right"),
+            Column("THRESHOLD", 58, "mono", "right"), Column("", 8)]
+    cols.append(Column("WHAT IT MEANS", width - sum(c.width for c in cols), "regular"))
+    table = Table(cols, fonts)
+    table.special[0] = _outcome_cell(fonts)
+    checks = list(case.get("checks") or [])
+    blocks = [_heading(fonts, "Checks of the explanation",
+                       "each outcome shown by word and shape: ● pass  △ warn  ⊠ fail  – not run"),
+              table.header()]
+    if not checks:
+        blocks.append(table.row(["not-run", "none recorded", "—", "—", "", "no checks were recorded for this case"]))
+    for ch in checks:
+        blocks.append(table.row([str(ch.get("outcome", "?")), str(ch.get("name", "?")), _fmt_num(ch.get("value")),
+                                 _fmt_num(ch.get("threshold")), "", str(ch.get("meaning", ""))]))
+    return blocks, table
+
+
+def _review_blocks(reviews: Sequence[dict], as_of_seq: int, fonts: FontSet, width: float) -> tuple[
+        list[Block], Table]:
+    cols = [Column("RECORDED", 82, "regular"), Column("READER", 70, "mono"), Column("VERDICT", 50, "bold"),
+            Column("LABEL", 62, "regular")]
+    cols.append(Column("NOTE", width - sum(c.width for c in cols), "regular"))
+    table = Table(cols, fonts)
+    blocks = [_heading(fonts, "Second reads recorded so far", f"as of ledger seq {as_of_seq}")]
+    if not reviews:
+        blocks.append(Block(16, lambda c, x, y: text_line(c, x, y - 10, "No second read recorded yet.",
+                                                          fonts.regular, 8, GREY)))
+        return blocks, table
+    blocks.append(table.header())
+    for r in reviews:
+        note = str(r.get("note") or "")
+        if len(note) > NOTE_LIMIT:
+            note = note[:NOTE_LIMIT] + " … (shortened on the sheet; the ledger holds the full note)"
+        blocks.append(table.row([_fmt_time(r.get("recorded_at") or r.get("time")), str(r.get("reader", "—")),
+                                 str(r.get("verdict", "—")), str(r.get("label") or "—"), note]))
+    return blocks, table
+
+
+def _caution_height(fonts: FontSet, width: float) -> tuple[float, list[str]]:
+    lines: list[str] = []
+    for sentence in CAUTIONS:
+        lines.extend(wrap(clean(sentence, fonts.regular), fonts.regular, 7.5, width - 20))
+    return 22 + 9.2 * len(lines), lines
+
+
+def _draw_frame(c: Canvas, fonts: FontSet, case: dict, entry_hash: str, page: int, pages: int,
+                size: tuple[float, float]) -> None:
+    """Cautions, footer and (after page 1) the running head: on every page."""
+    w, h = size
+    inner = w - 2 * MARGIN
+    ch, lines = _caution_height(fonts, inner)
+    y0 = MARGIN + FOOTER_H
+    c.setStrokeColorRGB(*INK)
+    c.setLineWidth(1.2)
+    c.setFillColorRGB(1, 1, 1)
+    c.rect(MARGIN, y0, inner, ch, stroke=1, fill=1)
+    c.setFillColorRGB(*INK)
+    c.rect(MARGIN, y0 + ch - 3, inner, 3, stroke=0, fill=1)
+    text_line(c, MARGIN + 10, y0 + ch - 15, CAUTION_TITLE, fonts.bold, 8.5)
+    yy = y0 + ch - 26
+    for line in lines:
+        text_line(c, MARGIN + 10, yy, line, fonts.regular, 7.5)
+        yy -= 9.2
+    c.setStrokeColorRGB(*RULE)
+    c.setLineWidth(0.5)
+    c.line(MARGIN, MARGIN + FOOTER_H - 6, w - MARGIN, MARGIN + FOOTER_H - 6)
+    label = "Verification code (ledger entry hash): "
+    text_line(c, MARGIN, MARGIN + 4, label, fonts.regular, 6.5, GREY)
+    text_line(c, MARGIN + c.stringWidth(label, fonts.regular, 6.5), MARGIN + 4, entry_hash, fonts.mono, 6.5)
+    c.setFont(fonts.regular, 7)
+    c.setFillColorRGB(*GREY)
+    c.drawRightString(w - MARGIN, MARGIN + 4, f"page {page} of {pages}")
+    if page > 1:
+        text_line(c, MARGIN, h - MARGIN - 8, f"Case sheet {case.get('case_id', '')} (continued)", fonts.bold, 9,
+                  GREY)
+
+
+def _title_block(case: dict, fonts: FontSet, width: float) -> Block:
+    status = str(case.get("status") or _worst(case))
+
+    def draw(c: Canvas, x: float, y: float) -> None:
+        text_line(c, x, y - 16, "Case sheet", fonts.bold, 17)
+        text_line(c, x, y - 29, "What the model saw and said, and how far its explanation can be trusted",
+                  fonts.regular, 8, GREY)
+        cid = clean(str(case.get("case_id", "—")), fonts.mono)
+        c.setFont(fonts.mono, 11)
+        c.setFillColorRGB(*INK)
+        c.drawRightString(x + width, y - 14, cid)
+        word = f"checks overall: {OUTCOME_WORDS.get(status, status)}"
+        ww = c.stringWidth(word, fonts.bold, 8)
+        text_line(c, x + width - ww, y - 28, word, fonts.bold, 8)
+        outcome_mark(c, x + width - ww - 8, y - 25.2, status)
+        c.setStrokeColorRGB(*INK)
+        c.setLineWidth(1.5)
+        c.line(x, y - 37, x + width, y - 37)
+
+    return Block(46, draw)
+
+
+def _worst(case: dict) -> str:
+    outs = [str(ch.get("outcome")) for ch in case.get("checks") or []]
+    return max(outs, key=lambda o: OUTCOME_RANK.get(o, 3)) if outs else "not-run"
+
+
+def render_sheet(
+    case: dict,
+    *,
+    blob: Callable[[str], bytes],
+    reviews: Sequence[dict] = (),
+    as_of_seq: int,
+    entry_hash: str,
+    page_size: str = "A4",
+    fixed_time: datetime | str | None = None,
+) -> bytes:
+    """The case sheet as PDF bytes. Same inputs (and same ``fixed_time``) give the same bytes.
+
+    The only declared time stamps are the PDF CreationDate and ModDate: ``fixed_time`` when given,
+    else the case's ``recorded_at``. ``blob(digest)`` returns blob bytes (``Ledger.blob``).
+    """
+    if page_size not in PAGE_SIZES:
+        raise InputError(f"sheet: page size {page_size!r} is not one of {', '.join(PAGE_SIZES)}")
+    if not isinstance(case, dict) or "case_id" not in case:
+        raise InputError("sheet: the case body has no case_id")
+    fonts = font_set()
+    size = PAGE_SIZES[page_size]
+    w, h = size
+    inner = w - 2 * MARGIN
+    caution_h, _ = _caution_height(fonts, inner)
+    bottom = MARGIN + FOOTER_H + caution_h + 10
+    check_blocks, check_table = _check_blocks(case, fonts, inner)
+    review_blocks, review_table = _review_blocks(list(reviews), as_of_seq, fonts, inner)
+    head = [_title_block(case, fonts, inner), _identity_result(case, fonts, inner),
+            *picture_blocks(case, blob, fonts, inner)]
+    blocks = [*head, *check_blocks, Block(8, lambda c, x, y: None), *review_blocks]
+    check_rows = range(len(head) + 2, len(head) + len(check_blocks))
+    review_rows = range(len(blocks) - len(review_blocks) + 2, len(blocks)) if reviews else range(0)
+
+    def repeat(i: int) -> list[Block]:
+        """A table continued on a new page starts with its header again."""
+        if i in check_rows:
+            return [check_table.header()]
+        if i in review_rows:
+            return [review_table.header()]
+        return []
+
+    top = h - MARGIN
+    pages = paginate(blocks, top - bottom, top - 16 - bottom, repeat)
+    saved_a85 = rl_config.useA85
+    rl_config.useA85 = 0  # binary streams: a third smaller and several times faster to write
+    try:
+        return _draw_pages(case, pages, fonts, size, entry_hash, fixed_time)
+    finally:
+        rl_config.useA85 = saved_a85
+
+
+def _draw_pages(case: dict, pages: list[list[Block]], fonts: FontSet, size: tuple[float, float],
+                entry_hash: str, fixed_time: datetime | str | None) -> bytes:
+    top = size[1] - MARGIN
+    buf = io.BytesIO()
+    c = Canvas(buf, pagesize=size, invariant=1, pageCompression=1)
+    pdf_date = _pdf_date(fixed_time, case.get("recorded_at"))
+    c.setDateFormatter(lambda *_: pdf_date)
+    c.setTitle(f"Case sheet {case['case_id']}")
+    model = case.get("model") or {}
+    c.setSubject(f"Explanation record for one output of {model.get('name', 'a model')} "
+                 f"version {model.get('version', '?')}")
+    c.setCreator(f"casefile {__version__}")
+    c.setAuthor("casefile")
+    c.setKeywords(f"verification code {entry_hash}")
+    for n, page in enumerate(pages, start=1):
+        _draw_frame(c, fonts, case, entry_hash, n, len(pages), size)
+        y = top - (16 if n > 1 else 0)
+        for b in page:
+            b.draw(c, MARGIN, y)
+            y -= b.height
+        c.showPage()
+    c.save()
+    return buf.getvalue()

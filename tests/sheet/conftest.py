@@ -1,0 +1,35 @@
+"""Pytest fixtures for the sheet tests: a synthetic case body, its blobs and reviews (tests/sheet/fixtures.py)."""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+from pathlib import Path
+
+import pytest
+
+
+def load_sheet_fixtures():
+    """tests/sheet/fixtures.py under a name of its own, so other rooms' helper files cannot clash."""
+    name = "casefile_test_sheet_fixtures"
+    if name not in sys.modules:
+        spec = importlib.util.spec_from_file_location(name, Path(__file__).with_name("fixtures.py"))
+        module = importlib.util.module_from_spec(spec)
+        sys.modules[name] = module
+        spec.loader.exec_module(module)
+    return sys.modules[name]
+
+
+@pytest.fixture(scope="session")
+def fx():
+    return load_sheet_fixtures()
+
+
+@pytest.fixture(scope="session")
+def sheet_pdf(fx) -> bytes:
+    """One rendered A4 sheet of the DICOM-source fixture case with two reviews."""
+    from casefile.sheet import render_sheet
+
+    case, blobs = fx.build_case()
+    return render_sheet(case, blob=fx.BlobStore(blobs), reviews=fx.reviews(2), as_of_seq=42,
+                        entry_hash=fx.ENTRY_HASH)
