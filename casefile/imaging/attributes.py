@@ -25,7 +25,7 @@ def as_int(ds: Dataset, keyword: str, name: str, default: int | None = None) -> 
     label = _spaced(keyword)
     try:
         raw = ds.get(keyword)
-    except Exception:  # noqa: BLE001 - pydicom raises many kinds on a bad value
+    except Exception:  # pydicom raises many kinds on a bad value
         raise InputError(f"{name}: invalid {label} value") from None
     raw = first(raw)
     if raw is None or raw == "":
@@ -95,15 +95,17 @@ def identifier_strings(ds: Dataset) -> list[str]:
     found: list[str] = []
     for keyword in DIRECT_IDENTIFIERS:
         try:
-            value = ds.get(keyword)
-        except Exception:  # noqa: BLE001
+            if keyword not in ds or ds[keyword].VR == "SQ":
+                continue
+            vr, value = ds[keyword].VR, ds[keyword].value
+        except Exception:
             continue
-        if value is None or getattr(value, "VR", None) == "SQ":
+        if value is None:
             continue
         for item in value if isinstance(value, (MultiValue, list)) else [value]:
             text = str(item).strip()
             parts = [text]
-            if getattr(value, "VR", None) == "PN":
+            if vr == "PN":
                 parts += re.split(r"[\^=\s]+", text)
             found.extend(p for p in parts if len(p) >= 3 and any(ch.isalnum() for ch in p))
     return found
@@ -130,7 +132,7 @@ def safe_metadata(ds: Dataset, transfer_syntax: str | None) -> tuple[dict[str, A
             if keyword not in ds:
                 continue
             value = _json_value(ds[keyword].value)
-        except Exception:  # noqa: BLE001 - an unreadable value is simply not kept
+        except Exception:  # an unreadable value is simply not kept
             continue
         if value is None or value == "" or value == []:
             continue

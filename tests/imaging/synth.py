@@ -42,7 +42,8 @@ def write_dicom(path: Path, stored: np.ndarray, **attrs: object) -> Path:
     ds.PixelRepresentation = 1 if stored.dtype.kind == "i" else 0
     for keyword, value in attrs.items():
         if value is None:
-            delattr(ds, keyword)
+            if keyword in ds:
+                delattr(ds, keyword)
         else:
             setattr(ds, keyword, value)
     ds.PixelData = stored.astype(stored.dtype.newbyteorder("<")).tobytes()
