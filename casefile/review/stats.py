@@ -7,8 +7,8 @@ Definitions used throughout:
 - the reader's label is the model's label for ``agree``, the given label for ``disagree``; an
   ``unsure`` verdict, or a ``disagree`` without a label, has no reader label and stays out of the
   confusion table and of kappa;
-- per draw, the disagreement rate among reviewed members comes with a 95 % Wilson score interval. When
-  members carry unequal inclusion probabilities (``risk``, and ``stratified`` with unequal shares), the
+- per draw, the disagreement rate among reviewed members comes with a 95 % Wilson score interval. For
+  ``risk`` and ``stratified`` draws (and any draw whose members carry unequal inclusion probabilities) the
   population rate is estimated by Horvitz-Thompson with N known: (1/N) sum y_i / pi_i, with the
   Poisson-sampling variance (1/N^2) sum (1 - pi_i) / pi_i^2 y_i^2 and a normal 95 % interval
   (estimate +- 1.96 SE, clipped to [0, 1]). It is given only once every member is reviewed, because
@@ -68,7 +68,7 @@ def summarise_draw(body: Mapping[str, Any], current: Mapping[str, Mapping[str, A
                            "population_size": body["population_size"], "unsure": unsure,
                            "pending": pending, **_rate(sum(ys), len(reviewed))}
     pis = {m["inclusion_probability"] for m in members}
-    if len(pis) > 1:
+    if body["plan"] in ("risk", "stratified") or len(pis) > 1:
         if pending:
             out["weighted"] = {"estimate": None, "reason": f"{len(pending)} member(s) not yet reviewed"}
         else:
