@@ -10,6 +10,7 @@ is already printed on the sheet itself.
 from __future__ import annotations
 
 import os
+import uuid
 from datetime import UTC, datetime
 from typing import Any
 
@@ -31,6 +32,7 @@ NO_DICOM_SOURCE = "no DICOM object made: the source was not a DICOM study"
 # Patient module (PS3.3 C.7.1.1) Type 2 attributes; General Study (C.7.2.1) Type 2 attributes.
 PATIENT_TYPE2 = ("PatientName", "PatientID", "PatientBirthDate", "PatientSex")
 STUDY_TYPE2 = ("StudyDate", "StudyTime", "ReferringPhysicianName", "StudyID", "AccessionNumber")
+_UID_NAMESPACE = uuid.uuid5(uuid.NAMESPACE_URL, "casefile:dicom-export")
 SERIES_NUMBER = 9701  # a high number keeps the sheets apart from the acquisition series (common practice)
 
 
@@ -46,8 +48,11 @@ def _stamp(when: datetime | str | None) -> datetime:
 
 
 def _uid(seed: list[str] | None) -> str:
-    """A 2.25 UID (PS3.5 B.2): derived from ``seed`` when given, so re-exports get the same UID."""
-    return generate_uid(prefix=None, entropy_srcs=seed) if seed else generate_uid(prefix=None)
+    """A 2.25 UID (PS3.5 B.2): a name-based UUID (RFC 4122 version 5) of ``seed`` when given, so
+    re-exports get the same UID; a random one otherwise."""
+    if not seed:
+        return generate_uid(prefix=None)
+    return f"2.25.{uuid.uuid5(_UID_NAMESPACE, '|'.join(seed)).int}"
 
 
 def _base(sop_class: str, *, study_uid: str, patient_module: dict[str, Any] | None, when: datetime,

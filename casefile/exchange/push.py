@@ -71,6 +71,8 @@ def push(
     where = f"archive {called_aet}@{host}:{port}"
     _check_aet(called_aet, "called AE title")
     ae = AE(ae_title=_check_aet(calling_aet, "calling AE title"))
+    if not datasets:
+        return []
     ae.acse_timeout = ae.dimse_timeout = ae.network_timeout = timeout
     ae.connection_timeout = timeout
     for sop_class in sorted({str(ds.SOPClassUID) for ds in datasets}):

@@ -27,7 +27,8 @@ def wrap(text: str, font: str, size: float, width: float) -> list[str]:
     return lines
 
 
-def outcome_mark(c: Canvas, x: float, y: float, outcome: str, s: float = 7.0) -> None:
+def outcome_mark(c: Canvas, x: float, y: float, outcome: str, s: float = 7.0, *, font: str = "Helvetica-Bold",
+                 ) -> None:
     """A shape for the outcome, centred at (x, y): filled circle pass, open triangle warn,
     square with a cross fail, dash not-run; unknown outcomes get a question mark."""
     c.saveState()
@@ -53,7 +54,7 @@ def outcome_mark(c: Canvas, x: float, y: float, outcome: str, s: float = 7.0) ->
         c.setLineWidth(1.6)
         c.line(x - r, y, x + r, y)
     else:
-        c.setFont("Helvetica-Bold", s * 1.2)
+        c.setFont(font, s * 1.2)
         c.drawCentredString(x, y - r * 0.8, "?")
     c.restoreState()
 

@@ -153,7 +153,7 @@ def _heading(fonts: FontSet, title: str, note: str = "") -> Block:
 
 def _outcome_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str], None]:
     def draw(c: Canvas, x: float, y: float, w: float, outcome: str) -> None:
-        outcome_mark(c, x + 9, y - 4.2, outcome)
+        outcome_mark(c, x + 9, y - 4.2, outcome, font=fonts.bold)
         text_line(c, x + 18, y - 7, OUTCOME_WORDS.get(outcome, str(outcome)), fonts.bold, 7.5)
 
     return draw
@@ -251,7 +251,7 @@ def _title_block(case: dict, fonts: FontSet, width: float) -> Block:
         word = f"checks overall: {OUTCOME_WORDS.get(status, status)}"
         ww = c.stringWidth(word, fonts.bold, 8)
         text_line(c, x + width - ww, y - 28, word, fonts.bold, 8)
-        outcome_mark(c, x + width - ww - 8, y - 25.2, status)
+        outcome_mark(c, x + width - ww - 8, y - 25.2, status, font=fonts.bold)
         c.setStrokeColorRGB(*INK)
         c.setLineWidth(1.5)
         c.line(x, y - 37, x + width, y - 37)
@@ -319,7 +319,7 @@ def _draw_pages(case: dict, pages: list[list[Block]], fonts: FontSet, size: tupl
                 entry_hash: str, fixed_time: datetime | str | None) -> bytes:
     top = size[1] - MARGIN
     buf = io.BytesIO()
-    c = Canvas(buf, pagesize=size, invariant=1, pageCompression=1)
+    c = Canvas(buf, pagesize=size, invariant=1, pageCompression=1, initialFontName=fonts.regular)
     pdf_date = _pdf_date(fixed_time, case.get("recorded_at"))
     c.setDateFormatter(lambda *_: pdf_date)
     c.setTitle(f"Case sheet {case['case_id']}")
