@@ -20,8 +20,11 @@ def case_inputs(ledger: Any, case_id: str) -> dict[str, Any]:
     if history is None or getattr(history, "entry", None) is None:
         raise LedgerError(f"case {case_id}: not found in the ledger")
     seq, _head_hash = ledger.head()
-    reviews = [r.body if hasattr(r, "body") else r for r in getattr(history, "reviews", None) or []]
-    return {"case": history.entry.body, "blob": ledger.blob, "reviews": reviews, "as_of_seq": int(seq),
+    def bodies(entries: Any) -> list[dict[str, Any]]:
+        return [{**e.body, "seq": e.seq} if hasattr(e, "body") else dict(e) for e in entries or []]
+
+    return {"case": history.entry.body, "blob": ledger.blob, "reviews": bodies(getattr(history, "reviews", None)),
+            "amendments": bodies(getattr(history, "amendments", None)), "as_of_seq": int(seq),
             "entry_hash": history.entry.hash}
 
 

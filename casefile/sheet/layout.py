@@ -45,12 +45,20 @@ def _fmt_num(v: Any) -> str:
         return "yes" if v else "no"
     if isinstance(v, int | float):
         return f"{v:.3g}" if abs(v) < 1000 else f"{v:.0f}"
+    if isinstance(v, dict):
+        return ", ".join(f"{k} {_fmt_num(x)}" for k, x in v.items())
     return str(v)
 
 
 def _fmt_time(t: Any) -> str:
     s = str(t or "—")
     return s.replace("T", " ").replace("Z", " UTC") if s.endswith("Z") else s
+
+
+def _fmt_short(t: Any) -> str:
+    """'YYYY-MM-DD HH:MM' for table cells (the column header says UTC)."""
+    s = str(t or "—")
+    return f"{s[:10]} {s[11:16]}" if len(s) >= 16 and s[10] == "T" else s
 
 
 def _short(d: Any) -> str:
@@ -94,7 +102,7 @@ def _kv_block(fonts: FontSet, title: str, rows: Sequence[tuple[str, str, str]], 
     return h, draw
 
 
-def _identity_result(case: dict, fonts: FontSet, width: float) -> Block:
+def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Sequence[dict] = ()) -> Block:
     inp, model, res = case.get("input") or {}, case.get("model") or {}, case.get("result") or {}
     sw = case.get("software") or {}
     left_w = width * 0.56
@@ -109,6 +117,12 @@ def _identity_result(case: dict, fonts: FontSet, width: float) -> Block:
         ("Pseudonym", str(inp.get("pseudonym") or "none (not a patient study)"), "mono"),
         ("Software", f"casefile {sw.get('casefile', '—')}", "regular"),
     ]
+    if amendments:
+        seqs = ", ".join(str(a.get("seq", "?")) for a in amendments)
+        ident.append(("Amendments", f"{len(amendments)} recorded after this case (seq {seqs}); see the end "
+                                    "of this sheet", "bold"))
+    if case.get("intended_use"):
+        ident.append(("Intended use", str(case["intended_use"]), "regular"))
     h1, d1 = _kv_block(fonts, "Identity", ident, left_w - 12)
     top = list(res.get("top") or [])[:5]
     h2 = 14 + 40 + 11 * len(top) + 8
@@ -179,8 +193,8 @@ def _check_blocks(case: dict, fonts: FontSet, width: float) -> tuple[list[Block]
 
 def _review_blocks(reviews: Sequence[dict], as_of_seq: int, fonts: FontSet, width: float) -> tuple[
         list[Block], Table]:
-    cols = [Column("RECORDED", 82, "regular"), Column("READER", 70, "mono"), Column("VERDICT", 50, "bold"),
-            Column("LABEL", 62, "regular")]
+    cols = [Column("SEQ", 30, "mono", "right"), Column("RECORDED (UTC)", 82, "regular"), Column("READER", 62, "mono"),
+            Column("VERDICT", 46, "bold"), Column("LABEL", 54, "regular")]
     cols.append(Column("NOTE", width - sum(c.width for c in cols), "regular"))
     table = Table(cols, fonts)
     blocks = [_heading(fonts, "Second reads recorded so far", f"as of ledger seq {as_of_seq}")]
@@ -193,8 +207,29 @@ def _review_blocks(reviews: Sequence[dict], as_of_seq: int, fonts: FontSet, widt
         note = str(r.get("note") or "")
         if len(note) > NOTE_LIMIT:
             note = note[:NOTE_LIMIT] + " … (shortened on the sheet; the ledger holds the full note)"
-        blocks.append(table.row([_fmt_time(r.get("recorded_at") or r.get("time")), str(r.get("reader", "—")),
+        if r.get("amends_seq"):
+            note = f"(replaces this reader's read at seq {r['amends_seq']}) {note}"
+        when = r.get("reviewed_at") or r.get("recorded_at") or r.get("time")
+        blocks.append(table.row([str(r.get("seq", "")), _fmt_short(when), str(r.get("reader", "—")),
                                  str(r.get("verdict", "—")), str(r.get("label") or "—"), note]))
+    return blocks, table
+
+
+def _amendment_blocks(amendments: Sequence[dict], fonts: FontSet, width: float) -> tuple[list[Block], Table]:
+    cols = [Column("SEQ", 30, "mono", "right"), Column("RECORDED (UTC)", 82, "regular"), Column("AUTHOR", 90, "mono")]
+    cols.append(Column("REASON AND CHANGES", width - sum(c.width for c in cols), "regular"))
+    table = Table(cols, fonts)
+    if not amendments:
+        return [], table
+    blocks = [_heading(fonts, "Amendments recorded after this case",
+                       "the record above is shown as first written; these corrections follow it"), table.header()]
+    for a in amendments:
+        changes = a.get("changes")
+        text = str(a.get("reason", ""))
+        if isinstance(changes, dict) and changes:
+            text += " — changes: " + ", ".join(f"{k} → {v}" for k, v in changes.items())
+        blocks.append(table.row([str(a.get("seq", "")), _fmt_short(a.get("amended_at")), str(a.get("author", "—")),
+                                 text[:NOTE_LIMIT]]))
     return blocks, table
 
 
@@ -269,6 +304,7 @@ def render_sheet(
     *,
     blob: Callable[[str], bytes],
     reviews: Sequence[dict] = (),
+    amendments: Sequence[dict] = (),
     as_of_seq: int,
     entry_hash: str,
     page_size: str = "A4",
@@ -278,6 +314,7 @@ def render_sheet(
 
     The only declared time stamps are the PDF CreationDate and ModDate: ``fixed_time`` when given,
     else the case's ``recorded_at``. ``blob(digest)`` returns blob bytes (``Ledger.blob``).
+    ``reviews`` and ``amendments`` are entry bodies; a ``seq`` key in each, when present, is printed.
     """
     if page_size not in PAGE_SIZES:
         raise InputError(f"sheet: page size {page_size!r} is not one of {', '.join(PAGE_SIZES)}")
@@ -291,11 +328,15 @@ def render_sheet(
     bottom = MARGIN + FOOTER_H + caution_h + 10
     check_blocks, check_table = _check_blocks(case, fonts, inner)
     review_blocks, review_table = _review_blocks(list(reviews), as_of_seq, fonts, inner)
-    head = [_title_block(case, fonts, inner), _identity_result(case, fonts, inner),
+    amend_blocks, amend_table = _amendment_blocks(list(amendments), fonts, inner)
+    head = [_title_block(case, fonts, inner), _identity_result(case, fonts, inner, amendments),
             *picture_blocks(case, blob, fonts, inner)]
-    blocks = [*head, *check_blocks, Block(8, lambda c, x, y: None), *review_blocks]
+    gap = Block(8, lambda c, x, y: None)
+    blocks = [*head, *check_blocks, gap, *review_blocks, *([gap, *amend_blocks] if amend_blocks else [])]
     check_rows = range(len(head) + 2, len(head) + len(check_blocks))
-    review_rows = range(len(blocks) - len(review_blocks) + 2, len(blocks)) if reviews else range(0)
+    first_review = len(head) + len(check_blocks) + 1
+    review_rows = range(first_review + 2, first_review + len(review_blocks)) if reviews else range(0)
+    amend_rows = range(len(blocks) - len(amend_blocks) + 2, len(blocks)) if amend_blocks else range(0)
 
     def repeat(i: int) -> list[Block]:
         """A table continued on a new page starts with its header again."""
@@ -303,6 +344,8 @@ def render_sheet(
             return [check_table.header()]
         if i in review_rows:
             return [review_table.header()]
+        if i in amend_rows:
+            return [amend_table.header()]
         return []
 
     top = h - MARGIN

