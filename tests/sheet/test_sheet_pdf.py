@@ -8,6 +8,8 @@ import shutil
 import subprocess
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from PIL import Image
 from pypdf import PdfReader
 
@@ -145,3 +147,22 @@ def test_pdftoppm_draws_the_sheet(tmp_path, sheet_pdf):
     assert abs(w - 827) <= 1 and abs(h - 1169) <= 1
     grey = Image.open(pngs[0]).convert("L")
     assert grey.getextrema()[0] < 40  # there is dark ink on the page, not a blank render
+
+
+def test_without_dejavu_the_sheet_falls_back_to_builtin_fonts(fx, tmp_path, monkeypatch):
+    from casefile.sheet import fonts, layout
+
+    fallback = fonts.font_set(str(tmp_path))  # an empty folder: no TrueType files there
+    assert not fallback.embedded and fallback.regular == "Helvetica"
+    monkeypatch.setattr(layout, "font_set", lambda: fallback)
+    text = _text(_render(fx))[0]
+    assert "c-000123" in text and fx.ENTRY_HASH in re.sub(r"\s+", "", text)
+
+
+@settings(max_examples=12, deadline=None)
+@given(note=st.text(max_size=200), reader=st.text(min_size=1, max_size=30))
+def test_any_unicode_in_reviews_renders(fx, note, reader):
+    case, blobs = fx.build_case(n_maps=1)
+    pdf = render_sheet(case, blob=fx.BlobStore(blobs), reviews=[{"reader": reader, "verdict": "agree", "note": note}],
+                       as_of_seq=3, entry_hash=fx.ENTRY_HASH)
+    assert len(PdfReader(io.BytesIO(pdf)).pages) >= 1
