@@ -125,7 +125,10 @@ def scale_bar(width: int = 256, height: int = 14) -> np.ndarray:
     return np.repeat(row[None, :, :], height, axis=0)
 
 
-def labelled_scale_bar(width: int = 300, bar_height: int = 14, font_path: str | None = None) -> np.ndarray:
+DEFAULT_FONT = "/usr/share/fonts/truetype/dejavu/DejaVuSans.ttf"
+
+
+def labelled_scale_bar(width: int = 300, bar_height: int = 14, font_path: str | None = DEFAULT_FONT) -> np.ndarray:
     """The scale strip with its words under it, as an RGB picture (for pages outside the PDF)."""
     from PIL import ImageDraw, ImageFont
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+import threading
 from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
 from typing import Any
@@ -35,6 +36,7 @@ from .pictures import picture_blocks
 PAGE_SIZES = {"A4": A4, "letter": LETTER}
 MARGIN = 36.0
 FOOTER_H = 22.0
+_RENDER_LOCK = threading.Lock()  # guards the reportlab setting changed while a sheet is drawn
 NOTE_LIMIT = 1500  # characters of a review note printed on the sheet; the ledger keeps the whole note
 
 
@@ -114,7 +116,8 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
         ("Input digest", _short(inp.get("file_sha256")), "mono"),
         ("Input", f"{inp.get('file_name', '—')}  ({inp.get('modality', '—')}, "
                   f"{inp.get('width', '?')}×{inp.get('height', '?')} px)", "regular"),
-        ("Pseudonym", str(inp.get("pseudonym") or "none (not a patient study)"), "mono"),
+        ("Pseudonym", str(inp.get("pseudonym") or ("none recorded" if inp.get("kind") == "dicom"
+                                                   else "none (not a DICOM study)")), "mono"),
         ("Software", f"casefile {sw.get('casefile', '—')}", "regular"),
     ]
     if amendments:
@@ -350,12 +353,13 @@ def render_sheet(
 
     top = h - MARGIN
     pages = paginate(blocks, top - bottom, top - 16 - bottom, repeat)
-    saved_a85 = rl_config.useA85
-    rl_config.useA85 = 0  # binary streams: a third smaller and several times faster to write
-    try:
-        return _draw_pages(case, pages, fonts, size, entry_hash, fixed_time)
-    finally:
-        rl_config.useA85 = saved_a85
+    with _RENDER_LOCK:
+        saved_a85 = rl_config.useA85
+        rl_config.useA85 = 0  # binary streams: a third smaller and several times faster to write
+        try:
+            return _draw_pages(case, pages, fonts, size, entry_hash, fixed_time)
+        finally:
+            rl_config.useA85 = saved_a85
 
 
 def _draw_pages(case: dict, pages: list[list[Block]], fonts: FontSet, size: tuple[float, float],

@@ -130,3 +130,13 @@ def test_scale_bar_runs_from_least_to_most():
     bar = scale_bar(256, 4)
     assert bar.shape == (4, 256, 3)
     assert np.array_equal(bar[0, 0], colour_lut()[0]) and np.array_equal(bar[0, -1], colour_lut()[255])
+
+
+def test_labelled_scale_bar_has_strip_and_words():
+    from casefile.sheet.colours import labelled_scale_bar
+
+    pic = labelled_scale_bar(200, 10)
+    assert pic.dtype == np.uint8 and pic.shape[1] == 212
+    assert np.array_equal(pic[8, 6], colour_lut()[0]) and np.array_equal(pic[8, 205], colour_lut()[255])
+    words = pic[20:, :, :].min(axis=2)
+    assert (words < 80).sum() > 50  # dark text under the strip

@@ -131,7 +131,7 @@ def test_missing_or_altered_blob_is_said_in_words(fx):
 
 def test_png_source_case_renders_without_mm_scale(fx):
     text = _flat(_text(_render(fx, dicom=False))[0])
-    assert "pixel spacing unknown" in text and "not a patient study" in text
+    assert "pixel spacing unknown" in text and "none (not a DICOM study)" in text
 
 
 @pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="poppler-utils (pdftoppm) is not installed")
@@ -166,3 +166,11 @@ def test_any_unicode_in_reviews_renders(fx, note, reader):
     pdf = render_sheet(case, blob=fx.BlobStore(blobs), reviews=[{"reader": reader, "verdict": "agree", "note": note}],
                        as_of_seq=3, entry_hash=fx.ENTRY_HASH)
     assert len(PdfReader(io.BytesIO(pdf)).pages) >= 1
+
+
+def test_a_bare_case_still_renders_and_says_what_is_missing(fx):
+    pdf = render_sheet({"case_id": "c-bare"}, blob=fx.BlobStore({}), as_of_seq=0, entry_hash="0" * 64)
+    text = _flat(_text(pdf)[0])
+    assert "c-bare" in text and "picture not available" in text and "none recorded" in text
+    with pytest.raises(InputError, match="no case_id"):
+        render_sheet({}, blob=fx.BlobStore({}), as_of_seq=0, entry_hash="0" * 64)
