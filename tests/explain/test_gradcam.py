@@ -6,11 +6,12 @@ import numpy as np
 import pytest
 import torch
 import torch.nn.functional as F
-from conftest import TinyNet
 from torch import nn
 
 from casefile.errors import ExplainError
 from casefile.explain import gradcam, gradient, occlusion, run
+
+from .conftest import TinyNet
 
 
 def cam(net: TinyNet, x: torch.Tensor, target: int) -> np.ndarray:
