@@ -1,0 +1,17 @@
+"""Model room: load a classifier and its card, check they agree, and preprocess scans as the card says.
+
+`load_model(model_path, card_path)` reads `model_path` by one rule:
+  * "package.module:factory" (not an existing file): a Python entry point; the card's `weights` field
+    names a state-dict file relative to the card; the digest is that file's SHA-256;
+  * a ".pt2" file: a torch.export archive (unflattened so submodule names and hooks work);
+  * a TorchScript file (torch.jit.save): loaded with torch.jit.load;
+  * any other file: a state dict for the card's `entry_point` ("package.module:factory").
+The factory is called with the card's `entry_point_args` (default: no arguments). Loading an entry
+point or TorchScript runs code: load only models from sources you trust.
+"""
+
+from casefile.models.card import card_digest, check_card, read_card
+from casefile.models.loading import LoadedModel, load_model, sha256_file
+from casefile.models.preprocess import BT601_LUMA
+
+__all__ = ["BT601_LUMA", "LoadedModel", "card_digest", "check_card", "load_model", "read_card", "sha256_file"]

@@ -1,0 +1,222 @@
+"""Loads a classifier (TorchScript, torch.export archive or Python entry point + state dict) with its card.
+
+One rule decides how `model_path` is read (documented in casefile.models):
+  1. "package.module:factory" that is not an existing file -> entry point; the card's `weights`
+     (a state-dict file, relative to the card) is loaded into factory(**entry_point_args);
+  2. a file ending in ".pt2" -> torch.export archive (torch.export.load, then torch.export.unflatten so
+     submodules keep their names and forward hooks fire);
+  3. any other file holding TorchScript code -> torch.jit.load;
+  4. any other file -> a state dict for the card's `entry_point`.
+Everything is loaded with map_location="cpu"; state dicts with weights_only=True.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib
+import re
+import warnings
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import torch
+from torch import nn
+
+from casefile.errors import ModelError
+from casefile.models.card import card_digest, read_card
+from casefile.models.preprocess import preprocess_pixels, roi_mask, rules_record
+
+ENTRY_POINT = re.compile(r"^[A-Za-z_]\w*(\.[A-Za-z_]\w*)*:[A-Za-z_]\w*$")
+
+
+@dataclass(frozen=True)
+class LoadedModel:
+    """A model ready for inference and explanation, with the card it was checked against."""
+
+    module: nn.Module
+    card: dict[str, Any]
+    digest: str
+    card_digest: str
+    labels: list[str]
+    layer: str
+    source: dict[str, Any] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+
+    def preprocess(self, scan: Any) -> torch.Tensor:
+        """Scan (or [C, H, W] 0..1 array) -> Tensor[1, C, H, W] float32 as the card says."""
+        return preprocess_pixels(scan, self.card)[0]
+
+    def preprocessing_record(self, scan: Any = None) -> dict[str, Any]:
+        """The rules applied to every scan; with a scan, also the steps that applied to that scan."""
+        record = rules_record(self.card)
+        if scan is not None:
+            record["applied"] = preprocess_pixels(scan, self.card)[1]
+        return record
+
+    def roi_mask(self, h: int, w: int) -> np.ndarray | None:
+        return roi_mask(self.card, h, w)
+
+
+def sha256_file(path: Path) -> str:
+    h = hashlib.sha256()
+    with path.open("rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _is_torchscript(path: Path) -> bool:
+    try:
+        with zipfile.ZipFile(path) as z:
+            names = z.namelist()
+    except (zipfile.BadZipFile, OSError):
+        return False
+    return any(n.split("/", 1)[-1].startswith("code/") for n in names) or any(
+        n.endswith("/constants.pkl") for n in names
+    )
+
+
+def _factory(entry_point: str, where: str) -> Any:
+    module_name, _, attr = entry_point.partition(":")
+    try:
+        mod = importlib.import_module(module_name)
+    except Exception as exc:  # an entry point is user code: any failure is reported in one line
+        raise ModelError(f"{where}: cannot import {module_name!r} for entry point {entry_point}: {exc}") from None
+    fn = getattr(mod, attr, None)
+    if not callable(fn):
+        raise ModelError(f"{where}: entry point {entry_point}: {module_name} has no callable {attr!r}")
+    return fn
+
+
+def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], card_name: str) -> nn.Module:
+    if not weights.is_file():
+        raise ModelError(f"{weights.name}: state-dict file not found at {weights} (named by {card_name})")
+    try:
+        module = _factory(entry_point, card_name)(**card.get("entry_point_args", {}))
+    except ModelError:
+        raise
+    except Exception as exc:
+        raise ModelError(f"{card_name}: entry point {entry_point} failed to build the model: {exc}") from None
+    if not isinstance(module, nn.Module):
+        raise ModelError(f"{card_name}: entry point {entry_point} returned {type(module).__name__}, not a module")
+    try:
+        state = torch.load(weights, map_location="cpu", weights_only=True)
+    except Exception as exc:
+        raise ModelError(f"{weights.name}: not a loadable state dict ({type(exc).__name__})") from None
+    if not isinstance(state, dict) or not all(isinstance(v, torch.Tensor) for v in state.values()):
+        raise ModelError(f"{weights.name}: not a state dict (a mapping of names to tensors)")
+    try:
+        module.load_state_dict(state, strict=True)
+    except RuntimeError as exc:
+        first = str(exc).splitlines()[1:2] or [str(exc)]
+        raise ModelError(
+            f"{weights.name}: state dict does not fit {entry_point}: {first[0].strip()}"
+        ) from None
+    return module
+
+
+def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path) -> tuple[nn.Module, str, dict]:
+    text = str(model_path)
+    card_name = card_file.name
+    path = Path(model_path)
+    if ENTRY_POINT.match(text) and not path.exists():
+        if "weights" not in card:
+            raise ModelError(f"{card_name}: entry point {text} needs a 'weights' state-dict file in the card")
+        weights = card_file.parent / card["weights"]
+        module = _from_entry_point(text, weights, card, card_name)
+        return module, sha256_file(weights), {"format": "entry-point", "entry_point": text,
+                                              "file_name": weights.name}
+    if not path.is_file():
+        raise ModelError(f"{path.name}: model file not found at {path}")
+    digest = sha256_file(path)
+    if path.suffix == ".pt2":
+        try:
+            program = torch.export.load(str(path))
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                module = torch.export.unflatten(program)
+        except Exception as exc:
+            raise ModelError(f"{path.name}: not a readable torch.export archive ({type(exc).__name__})") from None
+        return module, digest, {"format": "torch.export", "file_name": path.name}
+    if _is_torchscript(path):
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", DeprecationWarning)
+                module = torch.jit.load(str(path), map_location="cpu")
+        except Exception as exc:
+            raise ModelError(f"{path.name}: not a readable TorchScript file ({type(exc).__name__})") from None
+        return module, digest, {"format": "torchscript", "file_name": path.name}
+    if "entry_point" not in card:
+        raise ModelError(
+            f"{path.name}: not TorchScript or a .pt2 archive; a state dict needs 'entry_point' in {card_name}"
+        )
+    module = _from_entry_point(card["entry_point"], path, card, card_name)
+    return module, digest, {"format": "entry-point", "entry_point": card["entry_point"], "file_name": path.name}
+
+
+def check_against_card(module: nn.Module, card: dict[str, Any], card_name: str) -> tuple[str, ...]:
+    """Dummy forward on zeros of the card's input shape; refuse any mismatch. Returns notes."""
+    notes: list[str] = []
+    layer = card["layer"]
+    modules = dict(module.named_modules())
+    if layer not in modules:
+        near = [n for n in modules if n and (n.startswith(layer.rsplit(".", 1)[0]) or layer in n)][:5]
+        hint = f" (names nearby: {', '.join(near)})" if near else ""
+        raise ModelError(f"{card_name}: card names layer {layer!r} but the model has no module by that name{hint}")
+    spec = card["input"]
+    x = torch.zeros(1, spec["channels"], spec["height"], spec["width"])
+    seen: list[Any] = []
+    handle = None
+    if isinstance(module, torch.jit.ScriptModule):
+        notes.append(f"layer {layer} output shape not checked: TorchScript modules do not allow forward hooks")
+    else:
+        handle = modules[layer].register_forward_hook(lambda _m, _i, out: seen.append(out))
+    try:
+        with torch.no_grad():
+            out = module(x)
+    except Exception as exc:
+        shape = f"[1, {spec['channels']}, {spec['height']}, {spec['width']}]"
+        msg = str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__
+        raise ModelError(f"{card_name}: the model fails on a {shape} input as the card describes: {msg}") from None
+    finally:
+        if handle is not None:
+            handle.remove()
+    if not isinstance(out, torch.Tensor):
+        raise ModelError(f"{card_name}: the model returns {type(out).__name__}, not one tensor of scores")
+    n = len(card["labels"])
+    if out.ndim != 2 or out.shape[0] != 1:
+        raise ModelError(f"{card_name}: the model gives output of shape {list(out.shape)}, expected [1, {n}]")
+    if out.shape[1] != n:
+        raise ModelError(f"{card_name}: card lists {n} labels but the model gives {out.shape[1]} outputs")
+    if not torch.isfinite(out).all():
+        raise ModelError(f"{card_name}: the model gives NaN or infinite scores on a zero input")
+    if handle is not None:
+        if not seen:
+            raise ModelError(f"{card_name}: layer {layer!r} is never run by the model's forward")
+        feat = seen[-1]
+        if not isinstance(feat, torch.Tensor) or feat.ndim != 4:
+            shape = list(feat.shape) if isinstance(feat, torch.Tensor) else type(feat).__name__
+            raise ModelError(f"{card_name}: layer {layer!r} gives {shape}, not a 4-D [N, C, H, W] feature map")
+    return tuple(notes)
+
+
+def load_model(model_path: str | Path, card_path: str | Path) -> LoadedModel:
+    """Load a model and its card, check they agree, and return a LoadedModel (module in eval mode)."""
+    card_file = Path(card_path)
+    card = read_card(card_file)
+    module, digest, source = _load_module(model_path, card, card_file)
+    module.eval()
+    notes = check_against_card(module, card, card_file.name)
+    return LoadedModel(
+        module=module,
+        card=card,
+        digest=digest,
+        card_digest=card_digest(card),
+        labels=list(card["labels"]),
+        layer=card["layer"],
+        source=source,
+        notes=notes,
+    )
