@@ -42,7 +42,7 @@ def preprocess_pixels(scan: Any, card: dict[str, Any]) -> tuple[torch.Tensor, di
     spec = card["input"]
     want_c, want_h, want_w = spec["channels"], spec["height"], spec["width"]
     have_c, have_h, have_w = arr.shape
-    x = torch.from_numpy(np.ascontiguousarray(arr)).unsqueeze(0)
+    x = torch.from_numpy(np.array(arr, dtype=np.float32, copy=True)).unsqueeze(0)  # scans are read-only
     if have_c == 1 and want_c == 3:
         x = x.repeat(1, 3, 1, 1)
     elif have_c == 3 and want_c == 1:

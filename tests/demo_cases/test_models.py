@@ -83,3 +83,27 @@ def test_shortcut_model_collapses_without_its_marker(scenario):
     assert acc_with >= 0.9
     assert acc_with - acc_without >= 0.30
     assert _acc(shortcut, moved) <= 0.5  # it follows the glyph, not the defect
+
+
+def _corner_and_roi_share(loaded, data) -> tuple[float, float]:
+    """Median share of |d score / d input| in the 8x8 marker corner and inside the card's ROI."""
+    norm = loaded.card["normalisation"]
+    x = ((torch.from_numpy(data.as_float()) - norm["mean"][0]) / norm["std"][0]).requires_grad_(True)
+    out = loaded.module(x)
+    out.gather(1, out.argmax(1, keepdim=True)).sum().backward()
+    g = x.grad.abs()[:, 0].numpy()
+    total = g.sum(axis=(1, 2))
+    corner = g[:, :8, :8].sum(axis=(1, 2)) / total
+    roi = (g * loaded.roi_mask(64, 64)).sum(axis=(1, 2)) / total
+    return float(np.median(corner)), float(np.median(roi))
+
+
+def test_shortcut_model_looks_at_the_corner(scenario):
+    # gradient saliency (Simonyan, Vedaldi & Zisserman 2014) computed here with plain autograd
+    marked = make_set(HELD_OUT_SEED, 40, marker="label")
+    honest = load_model(scenario["honest"]["weights"], scenario["honest"]["card"])
+    shortcut = load_model(scenario["shortcut"]["weights"], scenario["shortcut"]["card"])
+    h_corner, h_roi = _corner_and_roi_share(honest, marked)
+    s_corner, s_roi = _corner_and_roi_share(shortcut, marked)
+    assert s_corner > 10 * h_corner  # the corner is 64 of 4096 pixels (1.6 %)
+    assert h_roi > s_roi + 0.2
