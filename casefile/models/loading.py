@@ -45,6 +45,19 @@ class LoadedModel:
     source: dict[str, Any] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
 
+    @property
+    def name(self) -> str:
+        return str(self.card["name"])
+
+    @property
+    def version(self) -> str:
+        return str(self.card["version"])
+
+    @property
+    def window(self) -> str | dict[str, Any]:
+        """The card's windowing rule, in the form casefile.imaging.load(window=...) takes."""
+        return self.card["windowing"]
+
     def preprocess(self, scan: Any) -> torch.Tensor:
         """Scan (or [C, H, W] 0..1 array) -> Tensor[1, C, H, W] float32 as the card says."""
         return preprocess_pixels(scan, self.card)[0]

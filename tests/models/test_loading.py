@@ -31,6 +31,8 @@ def test_three_forms_give_identical_outputs(tiny):
     assert [m.source["format"] for m in (by_state, by_entry, by_script, by_export)] == [
         "entry-point", "entry-point", "torchscript", "torch.export"]
     assert all(not m.module.training for m in (by_state, by_entry, by_script, by_export))
+    assert (by_state.name, by_state.version, by_state.window) == ("tiny-test", "0.0.1", "file")
+    assert by_script.notes and "TorchScript" in by_script.notes[0] and not by_export.notes
 
 
 def test_digest_is_sha256_of_the_file_loaded(tiny):
