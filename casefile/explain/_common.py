@@ -9,7 +9,7 @@ import numpy as np
 import torch
 from torch import nn
 
-from casefile.errors import ExplainError
+from casefile.errors import CasefileError, ExplainError
 
 
 def check_input(x: object) -> torch.Tensor:
@@ -81,10 +81,23 @@ def model_left_as_found(module: nn.Module) -> Iterator[nn.Module]:
                 p.requires_grad_(flag)
 
 
+def call_model(module: nn.Module, x: torch.Tensor) -> object:
+    """``module(x)``; a failure inside the model becomes a one-line ExplainError naming the input shape."""
+    try:
+        return module(x)
+    except CasefileError:
+        raise
+    except Exception as exc:  # any error raised by user model code is reported, not shown as a traceback
+        first = (str(exc).strip().splitlines() or [""])[0][:200]
+        raise ExplainError(
+            f"model: forward pass failed on an input of shape {list(x.shape)}: {type(exc).__name__}: {first}"
+        ) from None
+
+
 def forward_logits(module: nn.Module, x: torch.Tensor) -> torch.Tensor:
     """One forward pass returning checked logits [1, K] (no graph kept)."""
     with torch.no_grad():
-        return check_logits(module(x)).detach()
+        return check_logits(call_model(module, x)).detach()
 
 
 def to_map(t: torch.Tensor) -> np.ndarray:

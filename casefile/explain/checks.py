@@ -46,7 +46,7 @@ from torch import nn
 
 from casefile.errors import ExplainError
 
-from ._common import model_left_as_found
+from ._common import call_model, model_left_as_found
 from .occlusion import fill_image
 from .similarity import area_resample, spearman
 
@@ -255,7 +255,7 @@ def deletion(
         filler = fill_image(x, fill)
         m = torch.as_tensor(np.stack(masks))[:, None].to(x.device)
         xs = torch.where(m, filler, x)
-        z = module(torch.cat([x, xs])).to(torch.float64)
+        z = call_model(module, torch.cat([x, xs])).to(torch.float64)
     if not _finite(z):
         return _not_run(name, margin, "the model gave non-finite scores on the covered images")
     others = torch.cat([z[:, :target], z[:, target + 1 :]], dim=1)

@@ -9,7 +9,15 @@ from torch import nn
 
 from casefile.errors import ExplainError
 
-from ._common import check_input, check_logits, get_layer, model_left_as_found, pick_target, to_map
+from ._common import (
+    call_model,
+    check_input,
+    check_logits,
+    get_layer,
+    model_left_as_found,
+    pick_target,
+    to_map,
+)
 
 
 def _capture(module: nn.Module, x: torch.Tensor, layer: str) -> tuple[torch.Tensor, torch.Tensor]:
@@ -30,7 +38,7 @@ def _capture(module: nn.Module, x: torch.Tensor, layer: str) -> tuple[torch.Tens
         with torch.enable_grad():
             # The input carries a graph so the activation has one even when every parameter is frozen.
             xin = x.detach().clone().requires_grad_(True)
-            logits = check_logits(module(xin))
+            logits = check_logits(call_model(module, xin))
     finally:
         handle.remove()
     if not captured:
@@ -83,7 +91,7 @@ def gradient(module: nn.Module, x: torch.Tensor, target: int | None = None) -> n
     with model_left_as_found(module):
         with torch.enable_grad():
             xin = x.detach().clone().requires_grad_(True)
-            logits = check_logits(module(xin))
+            logits = check_logits(call_model(module, xin))
             t = pick_target(logits, target)
             (grad,) = torch.autograd.grad(logits[0, t], xin, allow_unused=True)
     if grad is None:

@@ -12,7 +12,7 @@ from torch import nn
 
 from casefile.errors import ExplainError
 
-from ._common import check_input, check_logits, model_left_as_found, pick_target, to_map
+from ._common import call_model, check_input, check_logits, model_left_as_found, pick_target, to_map
 
 OUTPUTS = ("probability", "logit")
 
@@ -117,7 +117,7 @@ def occlusion(
     rows, cols = positions(h, ph, stride), positions(w, pw, stride)
     spots = [(r, c) for r in rows for c in cols]
     with model_left_as_found(module), torch.no_grad():
-        base_logits = check_logits(module(x))
+        base_logits = check_logits(call_model(module, x))
         t = pick_target(base_logits, target)
         z0 = base_logits[0, t]
         p0 = torch.softmax(base_logits[0], dim=0)[t]
@@ -129,7 +129,7 @@ def occlusion(
             xs = x.repeat(len(chunk), 1, 1, 1)
             for i, (r, c) in enumerate(chunk):
                 xs[i, :, r : r + ph, c : c + pw] = filler[0, :, r : r + ph, c : c + pw]
-            out = check_logits_batch(module(xs), len(chunk))
+            out = check_logits_batch(call_model(module, xs), len(chunk))
             drops_z[start : start + len(chunk)] = (z0 - out[:, t]).to(torch.float64)
             drops_p[start : start + len(chunk)] = (p0 - torch.softmax(out, dim=1)[:, t]).to(torch.float64)
     maps = {}

@@ -218,7 +218,7 @@ def run(
         return s[key] if s[key] in maps else methods[0]
 
     found = [
-        ck.numerical({"logits": logits, **{f"map {k}": v for k, v in maps.items()}}),
+        ck.numerical({"input": x, "logits": logits, **{f"map {k}": v for k, v in maps.items()}}),
         ck.confidence(probs, t, settings=s),
     ]
     rnd = chosen("randomisation_method")

@@ -97,3 +97,19 @@ def test_run_with_given_target_and_one_method(object_net, test_picture) -> None:
     by_name = {c.name: c for c in e.checks}
     assert by_name["method_agreement"].outcome == "not-run" and by_name["region_focus"].outcome == "not-run"
     assert by_name["randomisation"].meaning.startswith("gradient:")
+
+
+def test_model_that_fails_on_the_input_gives_one_line_error(object_net) -> None:
+    # A 3-channel picture given to a 1-channel model: the model's own error is reported in one line.
+    with pytest.raises(
+        ExplainError, match=r"model: forward pass failed on an input of shape \[1, 3, 32, 32\]"
+    ) as info:
+        run(object_net, torch.zeros(1, 3, 32, 32), labels=["a", "b"], layer="features.5")
+    assert "\n" not in str(info.value)
+
+
+def test_nan_in_the_input_is_named(object_net, test_picture) -> None:
+    x = test_picture.clone()
+    x[0, 0, 3, 3] = float("nan")
+    e = run(object_net, x, labels=["a", "b"], layer="features.5", methods=("gradcam",))
+    assert e.checks[0].outcome == "fail" and "input (1 NaN" in e.checks[0].meaning
