@@ -118,7 +118,9 @@ def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], car
     try:
         state = torch.load(weights, map_location="cpu", weights_only=True)
     except Exception as exc:
-        raise ModelError(f"{weights.name}: not a loadable state dict ({type(exc).__name__})") from None
+        hint = "; a pickled whole module is refused, save module.state_dict() instead" if (
+            "weights_only" in str(exc) or "Unsupported global" in str(exc)) else ""
+        raise ModelError(f"{weights.name}: not a loadable state dict ({type(exc).__name__}){hint}") from None
     if not isinstance(state, dict) or not all(isinstance(v, torch.Tensor) for v in state.values()):
         raise ModelError(f"{weights.name}: not a state dict (a mapping of names to tensors)")
     try:

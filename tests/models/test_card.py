@@ -7,6 +7,8 @@ import json
 
 import pytest
 import rfc8785
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from jsonschema import Draft202012Validator
 
 from casefile.errors import ModelError
@@ -75,3 +77,21 @@ def test_card_digest_is_rfc8785_sha256_and_ignores_layout(tmp_path):
     p2.write_text(json.dumps(shuffled, separators=(",", ":")))
     assert card_digest(read_card(p1)) == card_digest(read_card(p2))
     assert card_digest({**card, "version": "0.0.2"}) != card_digest(card)
+
+
+_json = st.recursive(
+    st.none() | st.booleans() | st.integers(-5, 5000) | st.floats(allow_nan=False) | st.text(max_size=5),
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=5), inner, max_size=3),
+    max_leaves=6,
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(field=st.sampled_from(sorted(card_dict())), value=_json)
+def test_any_wrong_value_gives_a_one_line_model_error(tmp_path_factory, field, value):
+    path = tmp_path_factory.mktemp("fuzz") / "fuzz.json"
+    path.write_text(json.dumps({**card_dict(), field: value}))
+    try:
+        read_card(path)
+    except ModelError as exc:
+        assert str(exc).startswith("fuzz.json: ") and "\n" not in str(exc)

@@ -119,3 +119,10 @@ def test_entry_point_needs_weights(tiny):
     card.write_text(text)
     with pytest.raises(ModelError, match=r"^noweights.json: entry point .* needs a 'weights'"):
         load_model("demo_cases.nets:tiny_net", card)
+
+
+def test_pickled_whole_module_is_refused(tiny):
+    # weights_only=True refuses arbitrary pickles (torch.load documentation): only tensors and containers
+    torch.save(tiny_net(width=2), tiny["dir"] / "whole.pt")
+    with pytest.raises(ModelError, match=r"^whole.pt: not a loadable state dict .*save module.state_dict"):
+        load_model(tiny["dir"] / "whole.pt", tiny["card"])
