@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from json.encoder import encode_basestring
 from typing import Any
 
 from casefile.errors import ValidationError
@@ -12,22 +13,9 @@ from casefile.errors import ValidationError
 # exactly is refused rather than changed silently.
 MAX_SAFE_INTEGER = 2**53 - 1
 
-_ESCAPES = {'"': '\\"', "\\": "\\\\", "\b": "\\b", "\f": "\\f", "\n": "\\n", "\r": "\\r", "\t": "\\t"}
-
-
-def _string(s: str) -> str:
-    out = ['"']
-    for ch in s:
-        if ch in _ESCAPES:
-            out.append(_ESCAPES[ch])
-        elif ch < " ":
-            out.append(f"\\u{ord(ch):04x}")
-        elif "\ud800" <= ch <= "\udfff":
-            raise ValidationError(f"string contains a lone surrogate U+{ord(ch):04X}, which is not valid UTF-8")
-        else:
-            out.append(ch)
-    out.append('"')
-    return "".join(out)
+# json's C string encoder (ensure_ascii off) escapes exactly what RFC 8785 section 3.2.2.2 asks:
+# \" \\ \b \f \n \r \t, other controls as lowercase \u00xx, everything else as itself.
+_string = encode_basestring
 
 
 def format_number(x: float | int) -> str:
@@ -114,7 +102,10 @@ def canonical_bytes(value: Any) -> bytes:
     """Return the RFC 8785 canonical form of ``value`` as UTF-8 bytes."""
     out: list[str] = []
     _serialise(value, out)
-    return "".join(out).encode("utf-8")
+    try:
+        return "".join(out).encode("utf-8")
+    except UnicodeEncodeError as exc:
+        raise ValidationError(f"text contains a lone surrogate ({exc.reason}), which is not valid UTF-8") from None
 
 
 def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:

@@ -45,7 +45,7 @@ def cmd_init(args: argparse.Namespace) -> int:
 
 
 def cmd_verify(args: argparse.Namespace) -> int:
-    report = _ledger(args).verify(args.seal, public_key=args.public_key)
+    report = _ledger(args).verify(args.seal, public_key=args.public_key, strict=args.strict)
     if args.json:
         _jsonl(report.to_dict())
     else:
@@ -102,6 +102,127 @@ def cmd_audit(args: argparse.Namespace) -> int:
     return 0
 
 
+def _run_settings(args: argparse.Namespace) -> Any:
+    from casefile.pipeline import RunSettings
+
+    methods = tuple(m.strip() for m in args.methods.split(",") if m.strip())
+    fill: float | str | None = None
+    if args.fill is not None:
+        try:
+            fill = float(args.fill)
+        except ValueError:
+            fill = args.fill
+    return RunSettings(methods=methods, layer=args.layer, patch=args.patch, stride=args.stride, fill=fill,
+                       frame=args.frame, uid_policy=args.uid_policy)
+
+
+def cmd_explain(args: argparse.Namespace) -> int:
+    from casefile.models import load_model
+    from casefile.pipeline import explain_batch
+
+    loaded = load_model(args.model, args.card)
+    led = _ledger(args, create=True)
+
+    def show(out: Any) -> None:
+        if args.json:
+            _jsonl(out.json_line())
+        elif out.outcome == "failed":
+            _err(f"failed: {out.input}: {out.reason}")
+
+    summary = explain_batch(led, args.inputs, loaded, _run_settings(args), key=args.site_key,
+                            sheet_dir=args.sheets, progress=not args.quiet, on_outcome=show)
+    _err(summary.text())
+    if summary.interrupted:
+        return 130
+    return 1 if summary.failed else 0
+
+
+def cmd_sheet(args: argparse.Namespace) -> int:
+    from casefile.pipeline import write_sheet
+    from casefile.sheet import sheet_for_case
+
+    led = _ledger(args)
+    opts = {"page_size": args.page_size}
+    if len(args.case_ids) > 1 or args.dir:
+        folder = args.dir or "."
+        for cid in args.case_ids:
+            path = write_sheet(led, cid, folder, **opts)
+            print(path)
+        return 0
+    cid = args.case_ids[0]
+    out = args.output or f"{cid}.pdf"
+    data = sheet_for_case(led, cid, **opts)
+    with open(out, "wb") as f:
+        f.write(data)
+    print(out)
+    return 0
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    from casefile.exchange import export_case
+    from casefile.sheet import case_inputs, render_sheet
+
+    led = _ledger(args)
+    inputs = case_inputs(led, args.case_id)
+    case = inputs.pop("case")
+    pdf = render_sheet(case, **inputs)
+    if args.dicom:
+        out = export_case(case, pdf, dicom_path=args.dicom, entry_hash=inputs["entry_hash"])
+        if out.reason:
+            _err(f"casefile export: {args.case_id}: {out.reason}; the PDF was written to {out.pdf_path}")
+            return 1
+        print(out.dicom_path)
+        return 0
+    from casefile.exchange import encapsulated_pdf_for_case, push
+
+    host, _, port = args.pacs.rpartition(":")
+    if not host or not port.isdigit():
+        raise CasefileError(f"--pacs {args.pacs!r}: expected HOST:PORT")
+    ds = encapsulated_pdf_for_case(case, pdf, entry_hash=inputs["entry_hash"])
+    for status in push([ds], host, int(port), args.called_aet, calling_aet=args.calling_aet):
+        print(status)
+    return 0
+
+
+def _filters(args: argparse.Namespace) -> dict[str, str]:
+    return {k: v for k in ("model", "label", "status", "since", "until") if (v := getattr(args, k, None))}
+
+
+def cmd_sample(args: argparse.Namespace) -> int:
+    from casefile.review import describe_draw, draw
+
+    entry = draw(_ledger(args), args.plan, size=args.size, aql=args.aql, level=args.level, seed=args.seed,
+                 filters=_filters(args), allocation=args.allocation, strata=args.strata, share=args.share)
+    if args.json:
+        _jsonl({"seq": entry.seq, "hash": entry.hash, **entry.body})
+    else:
+        print(describe_draw(entry.body))
+    return 0
+
+
+def cmd_review(args: argparse.Namespace) -> int:
+    from casefile.review import record_review
+
+    entry = record_review(_ledger(args), args.case_id, reader=args.reader, verdict=args.verdict,
+                          label=args.label, note=args.note)
+    if args.json:
+        _jsonl({"seq": entry.seq, "hash": entry.hash, **entry.body})
+    else:
+        print(f"review recorded as seq {entry.seq} ({entry.hash[:16]}…)")
+    return 0
+
+
+def cmd_stats(args: argparse.Namespace) -> int:
+    from casefile.review import format_text, summarise
+
+    summary = summarise(_ledger(args))
+    if args.json:
+        _jsonl(summary)
+    else:
+        print(format_text(summary))
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from casefile.demo import run_demo
 
@@ -134,6 +255,8 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("verify", cmd_verify, "check every hash, link, blob and query row; exit 1 naming the first bad seq")
     sp.add_argument("--seal", metavar="FILE", help="also prove the ledger still holds the history in this seal file")
     sp.add_argument("--public-key", metavar="FILE", help="trusted Ed25519 public key the seal must be signed with")
+    sp.add_argument("--strict", action="store_true",
+                    help="also re-check each body's canonical form and schema (slower)")
 
     sp = add("seal", cmd_seal, "record a seal (head hash + Merkle root) and export it to a file")
     sp.add_argument("--key", metavar="FILE", help="Ed25519 private key file to sign the seal with")
@@ -151,6 +274,63 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--since", metavar="T", help="recorded at or after T (ISO 8601, UTC)")
     sp.add_argument("--until", metavar="T", help="recorded at or before T (ISO 8601, UTC)")
     sp.add_argument("--csv", action="store_true", help="CSV on stdout")
+
+    sp = add("explain", cmd_explain, "explain and record each input (files or folders); re-running skips "
+             "inputs already recorded with the same model and settings")
+    sp.add_argument("--model", required=True, metavar="FILE",
+                    help="TorchScript file, torch.export archive (.pt2), or package.module:factory")
+    sp.add_argument("--card", required=True, metavar="FILE", help="the model card (JSON)")
+    sp.add_argument("--methods", default="gradcam,occlusion,gradient",
+                    help="comma-separated: gradcam, occlusion, gradient (default all three)")
+    sp.add_argument("--layer", metavar="NAME", help="Grad-CAM layer (default: the card's)")
+    sp.add_argument("--patch", type=int, metavar="N", help="occlusion patch size in model-input pixels")
+    sp.add_argument("--stride", type=int, metavar="N", help="occlusion stride")
+    sp.add_argument("--fill", metavar="V", help="occlusion fill: a number, 'mean' or 'blur'")
+    sp.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame DICOM file (0-based)")
+    sp.add_argument("--uid-policy", choices=["keep-uids", "drop-uids"], default="keep-uids",
+                    help="keep the Study/Series/SOP Instance UIDs (default) or drop them")
+    sp.add_argument("--site-key", metavar="FILE", help="site key for pseudonyms (default $CASEFILE_SITE_KEY "
+                    "or ~/.config/casefile/site.key, created on first use)")
+    sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
+    sp.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+    sp.add_argument("inputs", nargs="+", metavar="INPUT", help="image files or folders (searched recursively)")
+
+    sp = add("sheet", cmd_sheet, "render the PDF case sheet of one or more cases", json_=False)
+    sp.add_argument("case_ids", nargs="+", metavar="CASE_ID")
+    sp.add_argument("-o", "--output", metavar="FILE", help="output file for one case (default CASE_ID.pdf)")
+    sp.add_argument("--dir", metavar="DIR", help="write each sheet as DIR/CASE_ID.pdf")
+    sp.add_argument("--page-size", choices=["A4", "letter"], default="A4")
+
+    sp = add("export", cmd_export, "wrap a case sheet as a DICOM Encapsulated PDF, to a file or an archive",
+             json_=False)
+    sp.add_argument("case_id", metavar="CASE_ID")
+    where = sp.add_mutually_exclusive_group(required=True)
+    where.add_argument("--dicom", metavar="FILE.dcm", help="write the DICOM object here")
+    where.add_argument("--pacs", metavar="HOST:PORT", help="send it to this archive with C-STORE")
+    sp.add_argument("--called-aet", default="ANY-SCP", help="the archive's AE title (with --pacs)")
+    sp.add_argument("--calling-aet", default="CASEFILE", help="our AE title (with --pacs)")
+
+    sp = add("sample", cmd_sample, "draw cases for a second read with a sampling plan; the draw is recorded")
+    sp.add_argument("--plan", required=True, choices=["random", "stratified", "risk", "lot"])
+    sp.add_argument("--size", type=int, metavar="N", help="sample size (random, stratified, risk)")
+    sp.add_argument("--aql", type=float, metavar="A", help="acceptable quality limit in %% (lot plan)")
+    sp.add_argument("--level", choices=["I", "II", "III"], default="II", help="general inspection level (lot)")
+    sp.add_argument("--seed", type=int, default=0, metavar="S", help="seed; the same seed redraws the same list")
+    sp.add_argument("--allocation", choices=["proportional", "equal"], default="proportional")
+    sp.add_argument("--strata", choices=["label", "status", "label+status"], default="label")
+    sp.add_argument("--share", type=float, metavar="P", help="risk plan: share of unflagged cases to draw")
+    for name in ("model", "label", "since", "until"):
+        sp.add_argument(f"--{name}", help=f"population filter: {name}")
+    sp.add_argument("--status", choices=["pass", "warn", "fail", "not-run"], help="population filter: status")
+
+    sp = add("review", cmd_review, "record a reader's verdict on a case")
+    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("--reader", required=True, metavar="ID")
+    sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
+    sp.add_argument("--label", metavar="L", help="the reader's label")
+    sp.add_argument("--note", metavar="TEXT")
+
+    add("stats", cmd_stats, "disagreement rates with intervals, kappa, confusion tables, lot decisions")
 
     sp = add("demo", cmd_demo, "run the whole job on the synthetic scenario", json_=False)
     sp.add_argument("--dir", default="demo_out", help="where to write the demo (default ./demo_out)")

@@ -23,3 +23,7 @@ class LedgerError(CasefileError):
 
 class ExplainError(CasefileError):
     """An explanation method cannot run with the settings given."""
+
+
+class ExchangeError(CasefileError):
+    """A DICOM object cannot be made, or the archive refused it or cannot be reached."""

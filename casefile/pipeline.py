@@ -1,0 +1,276 @@
+"""File → scan → model → explanation → record → ledger → sheet, for one input and for a batch (resumable)."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import sys
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from casefile.errors import CasefileError, InputError, ValidationError
+from casefile.ledger import Ledger, utc_now
+from casefile.record import CaseRecord, build, case_id_for, settings_digest, software_versions
+
+DEFAULT_METHODS = ("gradcam", "occlusion", "gradient")
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """What a run may vary. Together with the input and model digests it decides whether a case is new.
+
+    ``patch``/``stride`` of None take about a seventh of the smaller model-input side (32 and 16 on a
+    224-pixel input, the explain room's defaults) so small models get a useful occlusion grid too.
+    """
+
+    methods: tuple[str, ...] = DEFAULT_METHODS
+    layer: str | None = None
+    patch: int | None = None
+    stride: int | None = None
+    fill: float | str | None = None
+    explain: dict[str, Any] = field(default_factory=dict)
+    frame: int | None = None
+    uid_policy: str = "keep-uids"
+
+    def resolve(self, loaded: Any) -> dict[str, Any]:
+        """The full, stored settings for this model: every default filled in."""
+        from casefile.explain.run import full_settings
+
+        side = min(loaded.card["input"]["width"], loaded.card["input"]["height"])
+        patch = self.patch or max(2, round(side / 7))
+        stride = self.stride or max(1, patch // 2)
+        overrides = {**self.explain, "occlusion_patch": patch, "occlusion_stride": stride}
+        if self.fill is not None:
+            overrides["occlusion_fill"] = self.fill
+        return {
+            "methods": list(self.methods),
+            "layer": self.layer or loaded.layer,
+            "explain": full_settings(overrides),
+            "windowing": loaded.card["windowing"],
+            "uid_policy": self.uid_policy,
+            "frame": self.frame,
+            "preprocessing": loaded.preprocessing_record(),
+        }
+
+
+@dataclass
+class Outcome:
+    """What happened to one input: recorded, skipped (already recorded) or failed (with the reason)."""
+
+    input: str
+    outcome: str
+    case_id: str | None = None
+    seq: int | None = None
+    hash: str | None = None
+    reason: str | None = None
+    body: dict[str, Any] | None = None
+    sheet: str | None = None
+
+    def json_line(self) -> dict[str, Any]:
+        """The line `casefile explain --json` prints (schemas/explain_line.schema.json)."""
+        line: dict[str, Any] = {"input": self.input, "outcome": self.outcome, "case_id": self.case_id,
+                                "seq": self.seq, "hash": self.hash}
+        if self.outcome == "failed":
+            line["reason"] = self.reason
+            return line
+        b = self.body or {}
+        line.update({
+            "input_digest": b["input"]["file_sha256"],
+            "model_digest": b["model"]["digest"],
+            "label": b["result"]["label"],
+            "confidence": b["result"]["confidence"],
+            "checks": {c["name"]: c["outcome"] for c in b["checks"]},
+            "status": b["status"],
+        })
+        if self.sheet:
+            line["sheet"] = self.sheet
+        return line
+
+
+@dataclass
+class BatchSummary:
+    recorded: int = 0
+    skipped: int = 0
+    failed: list[tuple[str, str]] = field(default_factory=list)
+    outcomes: list[Outcome] = field(default_factory=list)
+    interrupted: bool = False
+
+    def text(self) -> str:
+        lines = [f"recorded {self.recorded}, skipped as already recorded {self.skipped}, failed {len(self.failed)}"]
+        lines += [f"  failed: {name}: {why}" for name, why in self.failed]
+        if self.interrupted:
+            lines.append("  interrupted: re-run the same command to finish; recorded cases are kept")
+        return "\n".join(lines)
+
+
+def iter_inputs(paths: Sequence[str | os.PathLike[str]]) -> Iterator[Path]:
+    """Files as given, and every file under a folder (recursive, sorted by path; hidden files left out)."""
+    for p in map(Path, paths):
+        if p.is_dir():
+            for sub in sorted(x for x in p.rglob("*") if x.is_file()):
+                if not any(part.startswith(".") for part in sub.relative_to(p).parts):
+                    yield sub
+        else:
+            yield p
+
+
+def _file_digest(path: Path) -> str | None:
+    try:
+        h = hashlib.sha256()
+        with open(path, "rb") as f:
+            for chunk in iter(lambda: f.read(1 << 20), b""):
+                h.update(chunk)
+        return h.hexdigest()
+    except OSError:
+        return None
+
+
+def _display_and_overlays(scan: Any, maps: dict[str, Any]) -> tuple[bytes, dict[str, bytes]]:
+    from casefile.sheet.colours import overlay, png_bytes
+
+    display = png_bytes(scan.display)
+    return display, {m: png_bytes(overlay(scan.display, arr)) for m, arr in maps.items()}
+
+
+def record_failure(ledger: Ledger, path: str | os.PathLike[str], reason: str, *, stage: str,
+                   loaded: Any = None, settings_hash: str | None = None) -> Outcome:
+    """Append a failed-attempt entry for an input that could not be recorded as a case."""
+    p = Path(path)
+    body: dict[str, Any] = {"attempted_at": utc_now(), "file_name": p.name or str(p),
+                            "file_sha256": _file_digest(p) if p.is_file() else None,
+                            "stage": stage, "reason": reason, "software": software_versions()}
+    if loaded is not None:
+        body["model"] = {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest}
+        body["settings_digest"] = settings_hash
+    entry = ledger.append("failed", body)
+    return Outcome(str(path), "failed", seq=entry.seq, hash=entry.hash, reason=reason)
+
+
+def explain_scan(scan: Any, loaded: Any, settings: dict[str, Any], *, target: int | None = None,
+                 source: str = "casefile") -> CaseRecord:
+    """Run the model and the explanation methods on one scan and build its case record (no ledger)."""
+    from casefile import explain
+
+    x = loaded.preprocess(scan)
+    roi = loaded.roi_mask(int(x.shape[2]), int(x.shape[3]))
+    exp = explain.run(loaded.module, x, target=target, labels=loaded.labels, layer=settings["layer"],
+                      methods=settings["methods"], settings=settings["explain"], roi=roi)
+    display, overlays = _display_and_overlays(scan, exp.maps)
+    return build(scan, loaded, exp, settings=settings, recorded_at=utc_now(), display_png=display,
+                 overlays=overlays, source=source)
+
+
+def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: RunSettings | None = None,
+                *, key: str | None = None, sheet_dir: str | os.PathLike[str] | None = None,
+                target: int | None = None) -> Outcome:
+    """One input end to end. The case and its blobs are appended in one transaction, or not at all."""
+    from casefile.imaging import load
+
+    run = run or RunSettings()
+    settings = run.resolve(loaded)
+    s_hash = settings_digest(settings)
+    try:
+        scan = load(path, frame=run.frame, key=key, window=loaded.card["windowing"], uid_policy=run.uid_policy)
+    except CasefileError as exc:
+        return record_failure(ledger, path, str(exc), stage="load", loaded=loaded, settings_hash=s_hash)
+    existing = ledger.find_case_id(scan.file_sha256, scan.frame, loaded.digest, s_hash)
+    if existing:
+        entry = ledger.case(existing).entry
+        return Outcome(str(path), "skipped", existing, entry.seq, entry.hash, body=entry.body)
+    try:
+        rec = explain_scan(scan, loaded, settings, target=target,
+                           source="caller" if target is not None else "casefile")
+    except CasefileError as exc:
+        return record_failure(ledger, path, str(exc), stage="explain", loaded=loaded, settings_hash=s_hash)
+    except (RuntimeError, ValueError) as exc:  # torch refuses something about this model or input
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        reason = f"{Path(path).name}: the explanation could not be computed: {first}"
+        return record_failure(ledger, path, reason, stage="explain", loaded=loaded, settings_hash=s_hash)
+    try:
+        entry = ledger.append("case", rec.body, blobs=rec.blobs)
+    except ValidationError as exc:
+        if "already recorded" in str(exc):  # another process recorded it a moment ago
+            cid = case_id_for(scan.file_sha256, scan.frame, loaded.digest, s_hash)
+            e = ledger.case(cid).entry
+            return Outcome(str(path), "skipped", cid, e.seq, e.hash, body=e.body)
+        raise
+    out = Outcome(str(path), "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
+    if sheet_dir is not None:
+        out.sheet = str(write_sheet(ledger, rec.case_id, sheet_dir))
+    return out
+
+
+def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str], **opts: Any) -> Path:
+    """Render the case sheet into ``folder``/<case_id>.pdf (written whole, then renamed into place)."""
+    from casefile.sheet import sheet_for_case
+
+    out = Path(folder)
+    out.mkdir(parents=True, exist_ok=True)
+    target = out / f"{case_id}.pdf"
+    tmp = target.with_suffix(".pdf.part")
+    tmp.write_bytes(sheet_for_case(ledger, case_id, **opts))
+    os.replace(tmp, target)
+    return target
+
+
+def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: Any,
+                  run: RunSettings | None = None, *, key: str | None = None,
+                  sheet_dir: str | os.PathLike[str] | None = None, progress: bool = True,
+                  on_outcome: Callable[[Outcome], None] | None = None) -> BatchSummary:
+    """Every input in order; bad inputs are recorded as failed attempts and the batch goes on."""
+    from tqdm import tqdm
+
+    files = list(iter_inputs(inputs))
+    summary = BatchSummary()
+    bar = tqdm(files, desc="explain", unit="case", file=sys.stderr, disable=not progress, dynamic_ncols=True)
+    try:
+        for path in bar:
+            out = explain_one(ledger, path, loaded, run, key=key, sheet_dir=sheet_dir)
+            summary.outcomes.append(out)
+            if out.outcome == "recorded":
+                summary.recorded += 1
+            elif out.outcome == "skipped":
+                summary.skipped += 1
+            else:
+                summary.failed.append((str(path), out.reason or "unknown"))
+            if on_outcome:
+                on_outcome(out)
+    except KeyboardInterrupt:
+        summary.interrupted = True
+    finally:
+        bar.close()
+    return summary
+
+
+def record_case(ledger: Ledger | str, model: Any, input: Any, *, prediction: int | str | None = None,
+                run: RunSettings | None = None, key: str | None = None) -> Outcome:
+    """Wrap an inference you already run: record ``input`` (a path or a Scan) with ``model``.
+
+    ``model`` is a LoadedModel (``casefile.models.load_model``). ``prediction`` is the label (or
+    index) your service reported; the explanation is then computed for that class and the record says
+    the result came from the caller. Returns the Outcome with the case id, seq and hash.
+    """
+    led = Ledger(ledger) if isinstance(ledger, str) else ledger
+    target = None
+    if prediction is not None:
+        if isinstance(prediction, str):
+            if prediction not in model.labels:
+                raise InputError(f"prediction {prediction!r} is not one of the card's labels {model.labels}")
+            target = model.labels.index(prediction)
+        else:
+            target = int(prediction)
+            if not 0 <= target < len(model.labels):
+                raise InputError(f"prediction index {target} is outside 0..{len(model.labels) - 1}")
+    if isinstance(input, str | os.PathLike):
+        return explain_one(led, input, model, run, key=key, target=target)
+    run = run or RunSettings()
+    settings = run.resolve(model)
+    rec = explain_scan(input, model, settings, target=target, source="caller" if target is not None else "casefile")
+    existing = led.find_case_id(input.file_sha256, input.frame, model.digest, settings_digest(settings))
+    if existing:
+        e = led.case(existing).entry
+        return Outcome(input.file_name, "skipped", existing, e.seq, e.hash, body=e.body)
+    entry = led.append("case", rec.body, blobs=rec.blobs)
+    return Outcome(input.file_name, "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
