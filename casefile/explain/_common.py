@@ -94,6 +94,34 @@ def call_model(module: nn.Module, x: torch.Tensor) -> object:
         ) from None
 
 
+def batched_logits(module: nn.Module, xs: torch.Tensor, batch_size: int) -> tuple[torch.Tensor, int]:
+    """Logits [N, K] for the images ``xs`` [N, C, H, W], ``batch_size`` at a time, without a graph.
+
+    A model exported for a fixed batch of one refuses bigger batches; then the images go one at a
+    time. Returns the logits and the batch size that worked.
+    """
+    outs: list[torch.Tensor] = []
+    with torch.no_grad():
+        start = 0
+        while start < len(xs):
+            chunk = xs[start : start + batch_size]
+            try:
+                out = call_model(module, chunk)
+            except ExplainError:
+                if batch_size == 1:
+                    raise
+                batch_size = 1
+                continue
+            if not isinstance(out, torch.Tensor) or out.dim() != 2 or out.shape[0] != len(chunk):
+                shape = list(out.shape) if isinstance(out, torch.Tensor) else type(out).__name__
+                raise ExplainError(
+                    f"model output: expected logits [{len(chunk)}, K] for a batch of {len(chunk)}, got {shape}"
+                )
+            outs.append(out.detach())
+            start += len(chunk)
+    return torch.cat(outs), batch_size
+
+
 def forward_logits(module: nn.Module, x: torch.Tensor) -> torch.Tensor:
     """One forward pass returning checked logits [1, K] (no graph kept)."""
     with torch.no_grad():

@@ -36,7 +36,8 @@ from __future__ import annotations
 
 import copy
 import math
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -46,7 +47,7 @@ from torch import nn
 
 from casefile.errors import ExplainError
 
-from ._common import call_model, model_left_as_found
+from ._common import batched_logits, model_left_as_found
 from .occlusion import fill_image
 from .similarity import area_resample, spearman
 
@@ -129,6 +130,26 @@ def reinitialise(m: nn.Module, gen: torch.Generator) -> None:
             p.copy_((draw * bound).to(p.dtype))
 
 
+@contextmanager
+def _scratch_model(module: nn.Module) -> Iterator[nn.Module]:
+    """A model the randomisation test may overwrite: a deep copy, or, for modules that cannot be
+    copied (some exported graphs), the module itself with every parameter restored bit for bit after."""
+    try:
+        twin = copy.deepcopy(module)
+    except Exception:  # fall back to in-place work with an exact restore
+        twin = None
+    if twin is not None:
+        yield twin
+        return
+    saved = [(p, p.detach().clone()) for p in module.parameters()]
+    try:
+        yield module
+    finally:
+        with torch.no_grad():
+            for p, value in saved:
+                p.copy_(value)
+
+
 def randomisation(
     module: nn.Module,
     x: torch.Tensor,
@@ -140,7 +161,7 @@ def randomisation(
 ) -> Check:
     """Cascading model-randomisation test (Adebayo et al. 2018) of the map given by ``map_fn``.
 
-    Works on a deep copy (the model passed in is not touched): re-initialises the head, then each
+    Works on a deep copy (or restores every parameter exactly afterwards): re-initialises the head, then each
     next parameterised layer down, with a fixed seed, recomputing the map each time. The value is
     |Spearman| between the original map and the map after the last step.
     """
@@ -154,24 +175,21 @@ def randomisation(
         return _not_run(
             name, lo, "the original map is flat (all values equal); rank correlation is undefined"
         )
-    try:
-        twin = copy.deepcopy(module)
-    except Exception as exc:  # a model that cannot be copied is a reason not to run, not to crash
-        return _not_run(name, lo, f"the model could not be copied ({type(exc).__name__})")
-    layers = top_layers(twin)
-    depth = int(_get(settings, "randomisation_layers")) or len(layers)
-    layers = layers[:depth]
-    if not layers:
-        return _not_run(name, lo, "the model has no parameters to re-initialise")
-    gen = torch.Generator().manual_seed(int(_get(settings, "randomisation_seed")))
-    steps: list[float] = []
-    with model_left_as_found(twin):
-        for _, layer in layers:
-            reinitialise(layer, gen)
-            fresh = map_fn(twin, x, target)
-            rho = spearman(original, fresh) if _finite(fresh) else None
-            # A map that goes flat or non-finite after re-initialisation no longer ranks pixels like the original.
-            steps.append(0.0 if rho is None else abs(rho))
+    with _scratch_model(module) as twin:
+        layers = top_layers(twin)
+        depth = int(_get(settings, "randomisation_layers")) or len(layers)
+        layers = layers[:depth]
+        if not layers:
+            return _not_run(name, lo, "the model has no parameters to re-initialise")
+        gen = torch.Generator().manual_seed(int(_get(settings, "randomisation_seed")))
+        steps: list[float] = []
+        with model_left_as_found(twin):
+            for _, layer in layers:
+                reinitialise(layer, gen)
+                fresh = map_fn(twin, x, target)
+                rho = spearman(original, fresh) if _finite(fresh) else None
+                # A map that goes flat or non-finite after re-initialisation no longer ranks pixels like the original.
+                steps.append(0.0 if rho is None else abs(rho))
     value = steps[-1]
     shown = ", ".join(f"{s:.2f}" for s in steps[:8]) + (" ..." if len(steps) > 8 else "")
     where = f"after re-initialising {len(steps)} layer(s) from the top (|rho| per step: {shown})"
@@ -255,7 +273,7 @@ def deletion(
         filler = fill_image(x, fill)
         m = torch.as_tensor(np.stack(masks))[:, None].to(x.device)
         xs = torch.where(m, filler, x)
-        z = call_model(module, torch.cat([x, xs])).to(torch.float64)
+        z = batched_logits(module, torch.cat([x, xs]), len(masks) + 1)[0].to(torch.float64)
     if not _finite(z):
         return _not_run(name, margin, "the model gave non-finite scores on the covered images")
     others = torch.cat([z[:, :target], z[:, target + 1 :]], dim=1)

@@ -33,6 +33,11 @@ def _capture(module: nn.Module, x: torch.Tensor, layer: str) -> tuple[torch.Tens
         # overwrite the activation we keep; the values seen by the rest of the model are identical.
         return out.clone()
 
+    if isinstance(sub, torch.jit.ScriptModule):
+        raise ExplainError(
+            f"layer {layer!r}: Grad-CAM needs a forward hook, which TorchScript modules do not allow;"
+            " use a torch.export archive (.pt2) or a Python entry point for this model"
+        )
     handle = sub.register_forward_hook(hook)
     try:
         with torch.enable_grad():

@@ -12,7 +12,15 @@ from torch import nn
 
 from casefile.errors import ExplainError
 
-from ._common import call_model, check_input, check_logits, model_left_as_found, pick_target, to_map
+from ._common import (
+    batched_logits,
+    call_model,
+    check_input,
+    check_logits,
+    model_left_as_found,
+    pick_target,
+    to_map,
+)
 
 OUTPUTS = ("probability", "logit")
 
@@ -30,6 +38,7 @@ class OcclusionResult:
     patch: tuple[int, int] = (0, 0)
     stride: int = 0
     target: int = 0
+    batch_size: int = 0
 
 
 def positions(size: int, patch: int, stride: int) -> list[int]:
@@ -124,12 +133,13 @@ def occlusion(
         filler = fill_image(x, fill, blur_sigma=blur_sigma, patch=ph)
         drops_z = torch.empty(len(spots), dtype=torch.float64)
         drops_p = torch.empty(len(spots), dtype=torch.float64)
+        used = batch_size
         for start in range(0, len(spots), batch_size):
             chunk = spots[start : start + batch_size]
             xs = x.repeat(len(chunk), 1, 1, 1)
             for i, (r, c) in enumerate(chunk):
                 xs[i, :, r : r + ph, c : c + pw] = filler[0, :, r : r + ph, c : c + pw]
-            out = check_logits_batch(call_model(module, xs), len(chunk))
+            out, used = batched_logits(module, xs, used)
             drops_z[start : start + len(chunk)] = (z0 - out[:, t]).to(torch.float64)
             drops_p[start : start + len(chunk)] = (p0 - torch.softmax(out, dim=1)[:, t]).to(torch.float64)
     maps = {}
@@ -153,12 +163,5 @@ def occlusion(
         patch=(ph, pw),
         stride=stride,
         target=t,
+        batch_size=used,
     )
-
-
-def check_logits_batch(out: object, n: int) -> torch.Tensor:
-    """Logits [n, K] from a batched forward pass, or a one-line ExplainError."""
-    if not isinstance(out, torch.Tensor) or out.dim() != 2 or out.shape[0] != n:
-        shape = list(out.shape) if isinstance(out, torch.Tensor) else type(out).__name__
-        raise ExplainError(f"model output: expected logits [{n}, K] for a batch of {n}, got {shape}")
-    return out

@@ -205,6 +205,7 @@ def run(
                 "output": s["occlusion_output"],
                 "patch_used": list(occ_result.patch),
                 "grid": [len(occ_result.rows), len(occ_result.cols)],
+                "batch_size_used": occ_result.batch_size,
             }
         else:
             maps[method] = fns[method](module, x, t)

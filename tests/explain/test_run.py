@@ -113,3 +113,45 @@ def test_nan_in_the_input_is_named(object_net, test_picture) -> None:
     x[0, 0, 3, 3] = float("nan")
     e = run(object_net, x, labels=["a", "b"], layer="features.5", methods=("gradcam",))
     assert e.checks[0].outcome == "fail" and "input (1 NaN" in e.checks[0].meaning
+
+
+@pytest.mark.filterwarnings("ignore::FutureWarning", "ignore::DeprecationWarning")
+def test_exported_fixed_batch_model_and_torchscript() -> None:
+    # torch.export with a static batch of one refuses batches: occlusion and deletion fall back to one at a time.
+    torch.manual_seed(2)
+    net = TinyNet().eval()
+    x = torch.randn(1, 1, 32, 32)
+    exported = torch.export.unflatten(torch.export.export(net, (x,)))
+    before = {k: v.clone() for k, v in exported.state_dict().items()}
+    e = run(exported, x, labels=["a", "b"], layer="features.5", settings=SMALL)
+    assert e.map_params["occlusion"]["batch_size_used"] == 1
+    np.testing.assert_array_equal(
+        e.maps["gradcam"], run(net, x, labels=["a", "b"], layer="features.5").maps["gradcam"]
+    )
+    assert {c.name: c.outcome for c in e.checks}["randomisation"] != "not-run"
+    assert all(torch.equal(before[k], v) for k, v in exported.state_dict().items())
+    scripted = torch.jit.script(net)
+    with pytest.raises(ExplainError, match="TorchScript modules do not allow"):
+        run(scripted, x, labels=["a", "b"], layer="features.5")
+    assert run(scripted, x, labels=["a", "b"], layer=None, methods=("gradient",)).maps["gradient"].shape == (
+        32,
+        32,
+    )
+
+
+class Uncopyable(TinyNet):
+    def __deepcopy__(self, memo: dict) -> TinyNet:
+        raise RuntimeError("cannot copy")
+
+
+def test_randomisation_in_place_fallback_restores_parameters_exactly() -> None:
+    from casefile.explain import checks as ck
+    from casefile.explain import gradcam
+
+    torch.manual_seed(3)
+    net = Uncopyable().eval()
+    x = torch.randn(1, 1, 32, 32)
+    before = {k: v.clone() for k, v in net.state_dict().items()}
+    c = ck.randomisation(net, x, 0, lambda m, xx, t: gradcam(m, xx, t, layer="features.5"))
+    assert c.outcome in {"pass", "warn", "fail"} and c.value is not None
+    assert all(torch.equal(before[k], v) for k, v in net.state_dict().items())
