@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import torch
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from scipy.ndimage import gaussian_filter
 from torch import nn
@@ -20,12 +20,21 @@ def linear(c: int, h: int, w: int, seed: int = 0) -> nn.Module:
     return nn.Sequential(nn.Flatten(), nn.Linear(c * h * w, 3)).double().eval()
 
 
-@pytest.mark.parametrize(
-    "shape,patch,stride", [((1, 20, 20), 8, 4), ((3, 19, 23), 6, 4), ((2, 10, 13), 4, 3)]
+@settings(max_examples=12, deadline=None)
+@given(
+    c=st.integers(1, 3),
+    h=st.integers(4, 24),
+    w=st.integers(4, 24),
+    patch=st.integers(2, 9),
+    stride=st.integers(1, 9),
 )
-def test_linear_model_logit_drop_is_patch_sum(shape: tuple[int, int, int], patch: int, stride: int) -> None:
+@example(c=1, h=20, w=20, patch=8, stride=4)
+@example(c=3, h=19, w=23, patch=6, stride=4)  # neither size a multiple of the stride
+@example(c=2, h=10, w=13, patch=4, stride=3)
+def test_linear_model_logit_drop_is_patch_sum(c: int, h: int, w: int, patch: int, stride: int) -> None:
     # Analytic identity: f(x) = w.x + b, fill 0 -> f(x) - f(x with patch zeroed) = sum over the patch of w.x.
-    c, h, w = shape
+    stride = min(stride, patch)
+    ph, pw = min(patch, h), min(patch, w)
     net = linear(c, h, w)
     x = torch.randn(1, c, h, w, dtype=torch.float64)
     res = occlusion(
@@ -35,10 +44,10 @@ def test_linear_model_logit_drop_is_patch_sum(shape: tuple[int, int, int], patch
     total, count = np.zeros((h, w)), np.zeros((h, w))
     for i, r in enumerate(res.rows):
         for j, col in enumerate(res.cols):
-            s = wx[r : r + patch, col : col + patch].sum()
+            s = wx[r : r + ph, col : col + pw].sum()
             assert res.grid_logit[i, j] == pytest.approx(s, rel=1e-5, abs=1e-5)
-            total[r : r + patch, col : col + patch] += s
-            count[r : r + patch, col : col + patch] += 1
+            total[r : r + ph, col : col + pw] += s
+            count[r : r + ph, col : col + pw] += 1
     assert count.min() >= 1  # every pixel covered although the size is not a multiple of the stride
     np.testing.assert_allclose(res.logit, total / count, rtol=1e-5, atol=1e-5)
     only = occlusion(net, x, 2, patch=patch, stride=stride, output="logit")
