@@ -69,18 +69,24 @@ def make_set(seed: int, n: int, rule: str) -> tuple[torch.Tensor, torch.Tensor]:
 
 @cache  # one training per rule for the whole run, shared by the module fixtures
 def train(rule: str, seed: int = 0, epochs: int = 8) -> TinyNet:
+    """Train a TinyNet for a few seconds on 256 generated pictures (seeded, so the same every run)."""
     torch.manual_seed(seed)
     net = TinyNet()
     x, y = make_set(seed, 256, rule)
     opt = torch.optim.Adam(net.parameters(), lr=1e-2)
-    net.train()
-    for _ in range(epochs):
-        perm = torch.randperm(len(x))
-        for i in range(0, len(x), 32):
-            idx = perm[i : i + 32]
-            opt.zero_grad()
-            nn.functional.cross_entropy(net(x[idx]), y[idx]).backward()
-            opt.step()
+    threads = torch.get_num_threads()
+    torch.set_num_threads(1)  # tiny batches: one thread is faster than two fighting other processes
+    try:
+        net.train()
+        for _ in range(epochs):
+            perm = torch.randperm(len(x))
+            for i in range(0, len(x), 32):
+                idx = perm[i : i + 32]
+                opt.zero_grad()
+                nn.functional.cross_entropy(net(x[idx]), y[idx]).backward()
+                opt.step()
+    finally:
+        torch.set_num_threads(threads)
     net.eval()
     for p in net.parameters():
         p.grad = None
