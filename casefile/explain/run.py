@@ -10,11 +10,16 @@ Default settings (:data:`DEFAULT_SETTINGS`) and why:
   information" rather than black or white; "mean" (per-channel mean of this image) and "blur" (a
   Gaussian-blurred copy, sigma = patch / 4 unless ``occlusion_blur_sigma`` is set) are offered.
 - ``occlusion_output`` "probability": a drop in probability is what a reader understands; "logit"
-  does not saturate and is offered. ``occlusion_batch_size`` 64 bounds memory on a workstation CPU.
+  does not saturate and is offered. ``occlusion_batch_size`` 64: on a ResNet-18-shaped model at
+  224 px on 2 shared cores, batch 64 cost about 110 ms per image against 390-590 ms one at a time,
+  and bounds memory on a workstation CPU.
 - ``randomisation_method``, ``deletion_method``, ``focus_method`` "gradcam": the map the checks are
   run on (falls back to the first method computed when it is not among ``methods``).
 - ``deletion_fill`` "same": cover pixels exactly as occlusion does, so the two tests agree on what
   "removed" means.
+- An explanation shows what influenced the model, not whether the model is right; the checks say
+  how far a map can be trusted, they are not a diagnosis or an inspection verdict. Decisions rest
+  with qualified staff under local clinical, regulatory and inspection practice.
 - Check thresholds: see :mod:`casefile.explain.checks` (``CHECK_DEFAULTS``), where each is justified.
 """
 
