@@ -147,20 +147,24 @@ def full_settings(settings: Mapping[str, Any] | None) -> dict[str, Any]:
     return merged
 
 
-def _method_fns(s: dict[str, Any], layer: str | None) -> dict[str, Any]:
-    occ = {
+def _occlusion_kwargs(s: dict[str, Any]) -> dict[str, Any]:
+    return {
         "patch": s["occlusion_patch"],
         "stride": s["occlusion_stride"],
         "fill": s["occlusion_fill"],
         "batch_size": s["occlusion_batch_size"],
         "blur_sigma": s["occlusion_blur_sigma"],
+        "output": s["occlusion_output"],
     }
-    return {
-        "gradcam": lambda m, x, t: gradcam(m, x, t, layer=layer),
-        "occlusion": lambda m, x, t: occlusion(m, x, t, output=s["occlusion_output"], **occ),
-        "gradient": lambda m, x, t: gradient(m, x, t),
-        "occlusion_kwargs": occ,
-    }
+
+
+def _map_fn(method: str, s: dict[str, Any], layer: str | None) -> ck.MapFn:
+    """The map of ``method`` as a function of (module, x, target), for the randomisation test."""
+    if method == "gradcam":
+        return lambda m, x, t: gradcam(m, x, t, layer=layer)
+    if method == "occlusion":
+        return lambda m, x, t: occlusion(m, x, t, **_occlusion_kwargs(s))
+    return gradient
 
 
 def run(
@@ -195,25 +199,21 @@ def run(
         )
     t = pick_target(logits, target)
     probs = torch.softmax(logits[0].to(torch.float64), dim=0).numpy()
-    fns = _method_fns(s, layer)
     maps: dict[str, np.ndarray] = {}
     params: dict[str, dict[str, Any]] = {}
     occ_result = None
     for method in methods:
         if method == "occlusion":
-            occ_result = occlusion(
-                module, x, t, output=s["occlusion_output"], return_all=True, **fns["occlusion_kwargs"]
-            )
+            occ_result = occlusion(module, x, t, return_all=True, **_occlusion_kwargs(s))
             maps[method] = getattr(occ_result, s["occlusion_output"])
             params[method] = {
-                **fns["occlusion_kwargs"],
-                "output": s["occlusion_output"],
+                **_occlusion_kwargs(s),
                 "patch_used": list(occ_result.patch),
                 "grid": [len(occ_result.rows), len(occ_result.cols)],
                 "batch_size_used": occ_result.batch_size,
             }
         else:
-            maps[method] = fns[method](module, x, t)
+            maps[method] = _map_fn(method, s, layer)(module, x, t)
             params[method] = (
                 {"layer": layer}
                 if method == "gradcam"
@@ -228,7 +228,7 @@ def run(
         ck.confidence(probs, t, settings=s),
     ]
     rnd = chosen("randomisation_method")
-    randomised = ck.randomisation(module, x, t, fns[rnd], original=maps[rnd], settings=s)
+    randomised = ck.randomisation(module, x, t, _map_fn(rnd, s, layer), original=maps[rnd], settings=s)
     randomised.meaning = f"{rnd}: {randomised.meaning}"
     found.append(randomised)
     if "gradcam" in maps and occ_result is not None:
