@@ -1,16 +1,141 @@
-"""The demo: the whole job on a synthetic scenario of our own (placeholder until the pipeline lands)."""
+"""The demo: the whole job on a synthetic scenario of our own (cast-part radiographs, two tiny models)."""
 
 from __future__ import annotations
 
+import json
 import os
+import sys
+import time
+from pathlib import Path
+from typing import Any
 
-from casefile.ledger import Ledger
+from casefile.ledger import Ledger, generate_key, seal_file_bytes
+from casefile.sheet.cautions import CAUTION_TEXT
+
+# Occlusion on the 64-pixel demo models: 16-pixel patches (a quarter of the side), stride 8 → 7×7 grid.
+DEMO_PATCH, DEMO_STRIDE = 16, 8
 
 
-def run_demo(out_dir: str) -> int:
-    os.makedirs(out_dir, exist_ok=True)
-    path = os.path.join(out_dir, "casefile.db")
-    ledger = Ledger(path)
-    report = ledger.verify()
-    print(f"ledger at {path}: {report.summary()}")
+def _say(msg: str) -> None:
+    print(msg, flush=True)
+
+
+def flag_rates(outcomes: list[Any], truth: dict[str, Any]) -> dict[str, Any]:
+    """Share of cases whose region-focus check failed or warned, with and without the corner marker."""
+    counts = {True: [0, 0], False: [0, 0]}
+    for out in outcomes:
+        if out.body is None:
+            continue
+        marker = truth[Path(out.input).name]["marker"]
+        focus = {c["name"]: c["outcome"] for c in out.body["checks"]}.get("region_focus")
+        counts[marker][1] += 1
+        counts[marker][0] += focus in ("fail", "warn")
+    rate = {k: (v[0] / v[1] if v[1] else None) for k, v in counts.items()}
+    return {"with_marker": rate[True], "without_marker": rate[False],
+            "flagged_with_marker": counts[True][0], "cases_with_marker": counts[True][1],
+            "flagged_without_marker": counts[False][0], "cases_without_marker": counts[False][1]}
+
+
+def simulated_reviews(ledger: Ledger, draw_body: dict[str, Any], truth: dict[str, Any]) -> int:
+    """A simulated reader (the scenario's ground truth) reads every drawn case; marked as simulated."""
+    from casefile.review import record_review
+
+    n = 0
+    for member in draw_body["members"]:
+        case = ledger.case(member["case_id"]).entry.body
+        true_label = truth[case["input"]["file_name"]]["label"]
+        verdict = "agree" if case["result"]["label"] == true_label else "disagree"
+        record_review(ledger, member["case_id"], reader="demo-reader (simulated)", verdict=verdict,
+                      label=true_label, note="simulated second read from the demo scenario's ground truth")
+        n += 1
+    return n
+
+
+def run_demo(out_dir: str | os.PathLike[str], *, seed: int = 7, n_cases: int = 40) -> int:
+    """Build the scenario, explain every case with both models, render sheets, sample, seal, verify."""
+    from casefile.models import load_model
+    from casefile.pipeline import RunSettings, explain_batch
+    from casefile.review import describe_draw, draw, format_text, summarise
+    from demo_cases.build import build_scenario
+
+    t0 = time.perf_counter()
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    _say(f"casefile demo → {out.resolve()}")
+    _say("1/6 generating the scenario (synthetic radiographs of cast parts) and training two tiny models …")
+    scen = build_scenario(out / "scenario", seed=seed, n_cases=n_cases)
+    truth = json.loads(Path(scen["truth"]).read_text())["files"]
+    ledger = Ledger(str(out / "casefile.db"))
+    site_key = str(out / "site.key")
+    run = RunSettings(patch=DEMO_PATCH, stride=DEMO_STRIDE)
+    results: dict[str, Any] = {}
+    for step, name in ((2, "honest"), (3, "shortcut")):
+        paths = scen[name]
+        loaded = load_model(paths["weights"], paths["card"])
+        _say(f"{step}/6 explaining {n_cases} cases with the {loaded.card['name']} model …")
+        summary = explain_batch(ledger, [scen["dir"] / "inputs"], loaded, run, key=site_key,
+                                sheet_dir=out / "sheets" / name, progress=sys.stderr.isatty())
+        _say("    " + summary.text().replace("\n", "\n    "))
+        results[name] = {"summary": summary, "rates": flag_rates(summary.outcomes, truth),
+                         "model": loaded.card["name"]}
+
+    _say("4/6 drawing a second-read sample (risk plan: every flagged case plus a share of the rest) …")
+    d = draw(ledger, "risk", share=0.2, seed=seed)
+    _say("    " + describe_draw(d.body).replace("\n", "\n    "))
+    n_rev = simulated_reviews(ledger, d.body, truth)
+    _say(f"    {n_rev} simulated second reads recorded (reader 'demo-reader (simulated)')")
+    stats_text = format_text(summarise(ledger))
+
+    _say("5/6 sealing the ledger with a signing key kept outside it …")
+    key = out / "seal.key"
+    if not key.exists():
+        generate_key(key)
+    seal_entry = ledger.seal(str(key), note="demo seal")
+    seal_path = out / "seal.json"
+    seal_path.write_bytes(seal_file_bytes(seal_entry))
+    _say("6/6 verifying every entry, blob and query row against the seal …")
+    report = ledger.verify(str(seal_path), public_key=str(key) + ".pub")
+    _say("    " + report.summary())
+
+    _print_findings(out, results, stats_text, time.perf_counter() - t0)
+    ledger.close()
     return 0 if report.ok else 1
+
+
+def _pct(x: float | None) -> str:
+    return "n/a" if x is None else f"{100 * x:.0f} %"
+
+
+def _first_sheet(result: dict[str, Any], status: str) -> str | None:
+    for o in result["summary"].outcomes:
+        if o.sheet and o.body and o.body["status"] == status:
+            return o.sheet
+    return next((o.sheet for o in result["summary"].outcomes if o.sheet), None)
+
+
+def _print_findings(out: Path, results: dict[str, Any], stats_text: str, seconds: float) -> None:
+    h, s = results["honest"]["rates"], results["shortcut"]["rates"]
+    _say("")
+    _say("What the demo shows")
+    _say("  The shortcut model was trained where a burned-in corner marker gives the label away. casefile's")
+    _say(f"  region-focus check flags it: {s['flagged_with_marker']}/{s['cases_with_marker']} cases with the "
+         f"marker ({_pct(s['with_marker'])}), {s['flagged_without_marker']}/{s['cases_without_marker']} "
+         f"without.")
+    _say(f"  The honest model is flagged in {h['flagged_with_marker']}/{h['cases_with_marker']} cases with the "
+         f"marker ({_pct(h['with_marker'])}) and {h['flagged_without_marker']}/{h['cases_without_marker']} "
+         "without.")
+    _say("")
+    _say("Second reads so far")
+    _say("  " + stats_text.replace("\n", "\n  "))
+    _say("")
+    _say("Where everything is")
+    _say(f"  ledger      {out / 'casefile.db'}   (casefile --store {out / 'casefile.db'} audit)")
+    _say(f"  sheets      {out / 'sheets'}/honest, {out / 'sheets'}/shortcut   (one PDF per case)")
+    _say(f"  seal        {out / 'seal.json'}   (signed; public key {out / 'seal.key.pub'})")
+    _say(f"  scenario    {out / 'scenario'}   (inputs, models with their cards, truth.json)")
+    _say("Open first")
+    _say(f"  {_first_sheet(results['shortcut'], 'fail')}   a shortcut-model case: see where it looked")
+    _say(f"  {_first_sheet(results['honest'], 'pass')}   the same job done honestly")
+    _say("")
+    _say("Caution: " + CAUTION_TEXT)
+    _say(f"(demo finished in {seconds:.0f} s)")

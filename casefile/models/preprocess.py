@@ -50,6 +50,10 @@ def preprocess_pixels(scan: Any, card: dict[str, Any]) -> tuple[torch.Tensor, di
         x = (x * w).sum(dim=1, keepdim=True)
     mode = card.get("resize", "bilinear")
     resized = (have_h, have_w) != (want_h, want_w)
+    if resized and mode == "none":
+        name = getattr(scan, "file_name", None) or "input"
+        raise InputError(f"{name}: image is {have_w}x{have_h} px but the model card expects {want_w}x{want_h} "
+                         "and allows no resizing")
     if resized:
         x = F.interpolate(x, size=(want_h, want_w), mode=mode, align_corners=False, antialias=True)
     mean = torch.tensor(card["normalisation"]["mean"], dtype=torch.float32).view(1, want_c, 1, 1)
