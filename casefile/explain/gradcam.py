@@ -66,11 +66,13 @@ def gradcam(
 
     Weights are the spatial mean of d(logit)/d(activation) per channel; the map is
     ReLU(sum_k w_k A^k) at the layer's resolution, upsampled bilinearly to the input size.
-    With ``return_raw=True`` returns ``(map, raw_map_at_layer_resolution)``.
+    With ``return_raw=True`` returns ``(map, raw_map_at_layer_resolution)``. A layer called more
+    than once in a forward pass is explained at its last call. Works inside the caller's
+    ``torch.no_grad()`` or ``torch.inference_mode()``.
     The model is left exactly as found (mode, requires_grad, parameters, parameter .grad).
     """
     x = check_input(x)
-    with model_left_as_found(module):
+    with model_left_as_found(module), torch.inference_mode(False), torch.enable_grad():
         logits, act = _capture(module, x, layer)
         t = pick_target(logits, target)
         if not act.requires_grad:
@@ -94,7 +96,7 @@ def gradient(module: nn.Module, x: torch.Tensor, target: int | None = None) -> n
     """Gradient saliency float32 [H, W]: |d logit / d pixel|, maximum over colour channels."""
     x = check_input(x)
     with model_left_as_found(module):
-        with torch.enable_grad():
+        with torch.inference_mode(False), torch.enable_grad():
             xin = x.detach().clone().requires_grad_(True)
             logits = check_logits(call_model(module, xin))
             t = pick_target(logits, target)

@@ -104,3 +104,17 @@ def test_every_method_leaves_the_model_bit_identical() -> None:
         assert [m.training for m in net.modules()] == modes
         assert [p.requires_grad for p in net.parameters()] == flags
         assert all(p.grad is None for p in net.parameters())
+
+
+def test_gradient_methods_work_inside_no_grad_and_inference_mode() -> None:
+    # Callers often wrap inference in no_grad / inference_mode; the maps must not depend on it.
+    torch.manual_seed(7)
+    net = TinyNet().eval()
+    x = torch.randn(1, 1, 32, 32)
+    ref_cam, ref_sal = gradcam(net, x, 1, layer="features.5"), gradient(net, x, 1)
+    with torch.no_grad():
+        np.testing.assert_array_equal(gradcam(net, x, 1, layer="features.5"), ref_cam)
+    with torch.inference_mode():
+        xi = x.clone()
+        np.testing.assert_array_equal(gradcam(net, xi, 1, layer="features.5"), ref_cam)
+        np.testing.assert_array_equal(gradient(net, xi, 1), ref_sal)
