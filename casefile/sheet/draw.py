@@ -6,6 +6,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
 from reportlab.lib.utils import simpleSplit
+from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 
 from .fonts import FontSet, clean
@@ -19,12 +20,40 @@ OUTCOME_WORDS = {"pass": "pass", "warn": "warn", "fail": "fail", "not-run": "not
 OUTCOME_RANK = {"pass": 0, "not-run": 1, "warn": 2, "fail": 3}
 
 
+def _break_long(line: str, font: str, size: float, width: float) -> list[str]:
+    """A line with no space to break at (a digest, a long name) cut by characters to fit ``width``."""
+    out: list[str] = []
+    while line and stringWidth(line, font, size) > width:
+        k = max(1, int(len(line) * width / stringWidth(line, font, size)))
+        while k > 1 and stringWidth(line[:k], font, size) > width:
+            k -= 1
+        out.append(line[:k])
+        line = line[k:]
+    return [*out, line] if line or not out else out
+
+
 def wrap(text: str, font: str, size: float, width: float) -> list[str]:
-    """Lines of ``text`` that fit ``width`` points; explicit newlines start new lines."""
+    """Lines of ``text`` that fit ``width`` points; explicit newlines start new lines, and a word
+    wider than the column is cut by characters rather than run into the next column."""
     lines: list[str] = []
     for para in text.split("\n"):
-        lines.extend(simpleSplit(para, font, size, width) or [""])
+        for line in simpleSplit(para, font, size, width) or [""]:
+            lines.extend(_break_long(line, font, size, width))
     return lines
+
+
+def wrap_capped(text: str, font: str, size: float, width: float, max_lines: int, tail: str) -> list[str]:
+    """``wrap`` kept to ``max_lines`` lines; when cut, the last line ends with an ellipsis and ``tail``."""
+    lines = wrap(text, font, size, width)
+    if len(lines) <= max_lines:
+        return lines
+    words = " ".join(lines[:max_lines]).split(" ")
+    while words:
+        cut = wrap(" ".join(words) + " … " + tail, font, size, width)
+        if len(cut) <= max_lines:
+            return cut
+        words.pop()
+    return wrap("… " + tail, font, size, width)[:max_lines]
 
 
 def outcome_mark(c: Canvas, x: float, y: float, outcome: str, s: float = 7.0, *, font: str = "Helvetica-Bold",
@@ -83,8 +112,8 @@ class Table:
     columns: Sequence[Column]
     fonts: FontSet
     size: float = 7.5
-    leading: float = 9.2
-    pad: float = 3.0
+    leading: float = 8.8
+    pad: float = 2.6
     special: dict[int, Callable[[Canvas, float, float, float, str], None]] = field(default_factory=dict)
 
     def _cell_lines(self, text: str, col: Column) -> list[str]:

@@ -29,6 +29,7 @@ from .draw import (
     paginate,
     text_line,
     wrap,
+    wrap_capped,
 )
 from .fonts import FontSet, clean, font_set
 from .pictures import picture_blocks
@@ -38,6 +39,11 @@ MARGIN = 36.0
 FOOTER_H = 22.0
 _RENDER_LOCK = threading.Lock()  # guards the reportlab setting changed while a sheet is drawn
 NOTE_LIMIT = 1500  # characters of a review note printed on the sheet; the ledger keeps the whole note
+USE_LINES = 3  # lines of the intended-use text printed on the sheet; the ledger keeps the whole text
+USE_TAIL = "(full text in the ledger record)"
+TOP_ROW = 12.0  # points between the rows of top classes in the result box
+CAUTION_LEADING = 8.8
+GAP = 6.0  # points between the checks, reviews and amendments sections
 
 
 def _fmt_num(v: Any) -> str:
@@ -83,13 +89,20 @@ def _pdf_date(fixed_time: datetime | str | None, recorded_at: str | None) -> str
     return t.strftime("D:%Y%m%d%H%M%S+00'00'")
 
 
-def _kv_block(fonts: FontSet, title: str, rows: Sequence[tuple[str, str, str]], width: float) -> tuple[
-        float, Callable[[Canvas, float, float], None]]:
-    """A titled list of label/value pairs; the third item names the value font."""
-    label_w = 84.0
-    size, leading = 7.5, 9.6
-    wrapped = [(k, wrap(clean(v, getattr(fonts, f)), getattr(fonts, f), size, width - label_w), f)
-               for k, v, f in rows]
+def _kv_block(fonts: FontSet, title: str, rows: Sequence[tuple[str, str, str]], width: float,
+              capped: frozenset[str] = frozenset()) -> tuple[float, Callable[[Canvas, float, float], None]]:
+    """A titled list of label/value pairs; the third item names the value font. Values of the labels
+    in ``capped`` are kept to ``USE_LINES`` lines, ending with a pointer to the ledger record."""
+    label_w = 76.0
+    size, leading = 7.5, 9.2
+
+    def lines(k: str, v: str, f: str) -> list[str]:
+        font = getattr(fonts, f)
+        if k in capped:
+            return wrap_capped(clean(v, font), font, size, width - label_w, USE_LINES, USE_TAIL)
+        return wrap(clean(v, font), font, size, width - label_w)
+
+    wrapped = [(k, lines(k, v, f), f) for k, v, f in rows]
     h = 14 + sum(len(ls) for _, ls, _ in wrapped) * leading
 
     def draw(c: Canvas, x: float, y: float) -> None:
@@ -126,9 +139,9 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
                                     "of this sheet", "bold"))
     if case.get("intended_use"):
         ident.append(("Intended use", str(case["intended_use"]), "regular"))
-    h1, d1 = _kv_block(fonts, "Identity", ident, left_w - 12)
+    h1, d1 = _kv_block(fonts, "Identity", ident, left_w - 12, frozenset({"Intended use"}))
     top = list(res.get("top") or [])[:5]
-    h2 = 14 + 40 + 11 * len(top) + 8
+    h2 = 62 + TOP_ROW * len(top)
 
     def draw_result(c: Canvas, x: float, y: float) -> None:
         w = width - left_w
@@ -138,16 +151,18 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
         text_line(c, x, y - 47, f"model confidence {conf:.1%}" if isinstance(conf, int | float)
                   else "model confidence —", fonts.regular, 8, GREY)
         yy = y - 62
-        bar_x, bar_w = x + 88, w - 88 - 40
+        label_w = 84.0
+        bar_x, bar_w = x + label_w + 4, w - label_w - 4 - 40
         for item in top:
             p = float(item.get("p") or 0.0)
-            text_line(c, x, yy, str(item.get("label", "?"))[:22], fonts.regular, 7.5)
+            label = wrap(clean(str(item.get("label", "?")), fonts.regular), fonts.regular, 7.5, label_w)[0]
+            text_line(c, x, yy, label, fonts.regular, 7.5)
             c.setFillColorRGB(*BAND)
-            c.rect(bar_x, yy - 1, bar_w, 7, stroke=0, fill=1)
+            c.rect(bar_x, yy - 0.5, bar_w, 6, stroke=0, fill=1)
             c.setFillColorRGB(*GREY)
-            c.rect(bar_x, yy - 1, bar_w * min(max(p, 0.0), 1.0), 7, stroke=0, fill=1)
+            c.rect(bar_x, yy - 0.5, bar_w * min(max(p, 0.0), 1.0), 6, stroke=0, fill=1)
             text_line(c, bar_x + bar_w + 4, yy, f"{p:.3f}", fonts.mono, 7.5)
-            yy -= 11
+            yy -= TOP_ROW
 
     def draw(c: Canvas, x: float, y: float) -> None:
         d1(c, x, y)
@@ -156,16 +171,16 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
         c.line(x + left_w - 6, y - 4, x + left_w - 6, y - max(h1, h2) + 4)
         draw_result(c, x + left_w + 6, y)
 
-    return Block(max(h1, h2) + 8, draw)
+    return Block(max(h1, h2) + 4, draw)
 
 
 def _heading(fonts: FontSet, title: str, note: str = "") -> Block:
     def draw(c: Canvas, x: float, y: float) -> None:
-        text_line(c, x, y - 12, title, fonts.bold, 10.5)
+        text_line(c, x, y - 11, title, fonts.bold, 10.5)
         if note:
-            text_line(c, x + c.stringWidth(title, fonts.bold, 10.5) + 8, y - 12, note, fonts.regular, 7.5, GREY)
+            text_line(c, x + c.stringWidth(title, fonts.bold, 10.5) + 8, y - 11, note, fonts.regular, 7.5, GREY)
 
-    return Block(18, draw, keep_with_next=True)
+    return Block(16, draw, keep_with_next=True)
 
 
 def _outcome_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str], None]:
@@ -177,8 +192,8 @@ def _outcome_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str]
 
 
 def _check_blocks(case: dict, fonts: FontSet, width: float) -> tuple[list[Block], Table]:
-    cols = [Column("OUTCOME", 58, "bold"), Column("CHECK", 100, "regular"), Column("VALUE", 44, "mono", "right"),
-            Column("THRESHOLD", 58, "mono", "right"), Column("", 8)]
+    cols = [Column("OUTCOME", 54, "bold"), Column("CHECK", 90, "regular"), Column("VALUE", 42, "mono", "right"),
+            Column("THRESHOLD", 52, "mono", "right"), Column("", 6)]
     cols.append(Column("WHAT IT MEANS", width - sum(c.width for c in cols), "regular"))
     table = Table(cols, fonts)
     table.special[0] = _outcome_cell(fonts)
@@ -240,7 +255,7 @@ def _caution_height(fonts: FontSet, width: float) -> tuple[float, list[str]]:
     lines: list[str] = []
     for sentence in CAUTIONS:
         lines.extend(wrap(clean(sentence, fonts.regular), fonts.regular, 7.5, width - 20))
-    return 22 + 9.2 * len(lines), lines
+    return 20 + CAUTION_LEADING * len(lines), lines
 
 
 def _draw_frame(c: Canvas, fonts: FontSet, case: dict, entry_hash: str, page: int, pages: int,
@@ -256,11 +271,11 @@ def _draw_frame(c: Canvas, fonts: FontSet, case: dict, entry_hash: str, page: in
     c.rect(MARGIN, y0, inner, ch, stroke=1, fill=1)
     c.setFillColorRGB(*INK)
     c.rect(MARGIN, y0 + ch - 3, inner, 3, stroke=0, fill=1)
-    text_line(c, MARGIN + 10, y0 + ch - 15, CAUTION_TITLE, fonts.bold, 8.5)
-    yy = y0 + ch - 26
+    text_line(c, MARGIN + 10, y0 + ch - 14, CAUTION_TITLE, fonts.bold, 8.5)
+    yy = y0 + ch - 24
     for line in lines:
         text_line(c, MARGIN + 10, yy, line, fonts.regular, 7.5)
-        yy -= 9.2
+        yy -= CAUTION_LEADING
     c.setStrokeColorRGB(*RULE)
     c.setLineWidth(0.5)
     c.line(MARGIN, MARGIN + FOOTER_H - 6, w - MARGIN, MARGIN + FOOTER_H - 6)
@@ -294,7 +309,7 @@ def _title_block(case: dict, fonts: FontSet, width: float) -> Block:
         c.setLineWidth(1.5)
         c.line(x, y - 37, x + width, y - 37)
 
-    return Block(46, draw)
+    return Block(42, draw)
 
 
 def _worst(case: dict) -> str:
@@ -328,13 +343,13 @@ def render_sheet(
     w, h = size
     inner = w - 2 * MARGIN
     caution_h, _ = _caution_height(fonts, inner)
-    bottom = MARGIN + FOOTER_H + caution_h + 10
+    bottom = MARGIN + FOOTER_H + caution_h + 8
     check_blocks, check_table = _check_blocks(case, fonts, inner)
     review_blocks, review_table = _review_blocks(list(reviews), as_of_seq, fonts, inner)
     amend_blocks, amend_table = _amendment_blocks(list(amendments), fonts, inner)
     head = [_title_block(case, fonts, inner), _identity_result(case, fonts, inner, amendments),
             *picture_blocks(case, blob, fonts, inner)]
-    gap = Block(8, lambda c, x, y: None)
+    gap = Block(GAP, lambda c, x, y: None)
     blocks = [*head, *check_blocks, gap, *review_blocks, *([gap, *amend_blocks] if amend_blocks else [])]
     check_rows = range(len(head) + 2, len(head) + len(check_blocks))
     first_review = len(head) + len(check_blocks) + 1

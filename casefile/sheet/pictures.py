@@ -101,9 +101,9 @@ def _mm_bar(c: Canvas, fonts: FontSet, x: float, y: float, dw: float, field_mm: 
 
 def _panel(fonts: FontSet, pic: np.ndarray | None, why: str, title: str, lines: list[str], side: float,
            mm: float | None = None) -> tuple[float, Callable[[Canvas, float, float], None]]:
-    size, leading = 6.8, 8.2
+    size, leading = 6.8, 7.9
     wrapped = [ln for text in lines for ln in wrap(clean(text, fonts.regular), fonts.regular, size, side)]
-    h = side + 14 + leading * len(wrapped)
+    h = side + 13 + leading * len(wrapped)
 
     def draw(c: Canvas, x: float, y: float) -> None:
         c.setFillColorRGB(0, 0, 0)
@@ -162,10 +162,10 @@ def picture_blocks(case: dict, blob: Callable[[str], bytes], fonts: FontSet, wid
         info = [_params_text(m.get("params")),
                 f"raw map {'×'.join(str(v) for v in m.get('shape') or [])}; contours at 0.5 and 0.8 of its maximum"]
         panels.append(_panel(fonts, pic, pwhy, name, info, side))
-    blocks = [Block(18, lambda c, x, y: text_line(c, x, y - 12, "Pictures", fonts.bold, 10.5), keep_with_next=True)]
+    blocks = [Block(16, lambda c, x, y: text_line(c, x, y - 11, "Pictures", fonts.bold, 10.5), keep_with_next=True)]
     for start in range(0, len(panels), PER_ROW):
         row = panels[start:start + PER_ROW]
-        rh = max(p[0] for p in row) + 6
+        rh = max(p[0] for p in row) + 3
 
         def draw_row(c: Canvas, x: float, y: float, row: list = row) -> None:
             for k, (_, d) in enumerate(row):
@@ -194,4 +194,4 @@ def _scale_block(fonts: FontSet, width: float) -> Block:
         text_line(c, bx + bar_w + 10, y - 10, "each map scaled by its own maximum;", fonts.regular, 6.8, GREY)
         text_line(c, bx + bar_w + 10, y - 19, "values are relative, not probabilities", fonts.regular, 6.8, GREY)
 
-    return Block(30, draw)
+    return Block(27, draw)

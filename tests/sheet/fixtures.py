@@ -46,8 +46,15 @@ def _png(a: np.ndarray) -> bytes:
     return buf.getvalue()
 
 
+# An intended-use statement long enough to wrap to five or more lines in the identity column.
+LONG_USE = ("Demonstration only: sorts synthetic 64x64 chest-like pictures into clear, nodule or artefact. "
+            "Trained on generated pictures; not validated for any real patient. Any finding must be read "
+            "by a qualified radiologist under the local clinical protocol; the model card lists the "
+            "operating point and the known failure modes.")
+
+
 def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: str = "c-000123",
-               ) -> tuple[dict, dict[str, bytes]]:
+               intended_use: str | None = None, pseudonym: str | None = None) -> tuple[dict, dict[str, bytes]]:
     """A case body shaped like DEVELOPERS.md "Case body", and its blobs keyed by SHA-256 hex."""
     blobs: dict[str, bytes] = {}
 
@@ -124,6 +131,10 @@ def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: 
         ],
         "status": "fail",
     }
+    if intended_use is not None:
+        body["intended_use"] = intended_use
+    if pseudonym is not None:
+        body["input"]["pseudonym"] = pseudonym
     return body, blobs
 
 
