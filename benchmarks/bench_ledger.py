@@ -50,9 +50,10 @@ def main(n_append: int = 10_000, n_verify: int = 100_000) -> None:
     for sync in ("FULL", "NORMAL"):
         engine, tb = bare_engine(os.path.join(tmp, f"bare-{sync}.db"), sync)
         t0 = time.perf_counter()
+        stmt = insert(tb)
         for i, b in enumerate(bodies, 1):
             with engine.begin() as conn:
-                conn.execute(insert(tb).values(seq=i, kind="case", body=json.dumps(b), prev_hash="", hash=str(i)))
+                conn.execute(stmt, {"seq": i, "kind": "case", "body": json.dumps(b), "prev_hash": "", "hash": str(i)})
         bare = time.perf_counter() - t0
         led = Ledger(os.path.join(tmp, f"ledger-{sync}.db"), synchronous=sync)
         t0 = time.perf_counter()

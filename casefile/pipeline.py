@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from casefile.errors import CasefileError, InputError, ValidationError
+from casefile.errors import CasefileError, InputError, ModelError, ValidationError
 from casefile.ledger import Ledger, utc_now
 from casefile.record import CaseRecord, build, case_id_for, settings_digest, software_versions
 
@@ -215,6 +215,17 @@ def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str], **
     return target
 
 
+def preflight(loaded: Any, run: RunSettings) -> None:
+    """Refuse, before any input is touched, a run that cannot work for this model at all."""
+    import torch
+
+    if "gradcam" in run.methods and isinstance(loaded.module, torch.jit.ScriptModule):
+        raise ModelError(f"{loaded.source.get('file_name', 'model')}: Grad-CAM needs forward hooks, which "
+                         "TorchScript modules do not allow; load a .pt2 archive or an entry point with its "
+                         "state dict, or choose --methods occlusion,gradient")
+    run.resolve(loaded)  # unknown explanation settings fail here, once
+
+
 def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: Any,
                   run: RunSettings | None = None, *, key: str | None = None,
                   sheet_dir: str | os.PathLike[str] | None = None, progress: bool = True,
@@ -222,6 +233,7 @@ def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], load
     """Every input in order; bad inputs are recorded as failed attempts and the batch goes on."""
     from tqdm import tqdm
 
+    preflight(loaded, run or RunSettings())
     files = list(iter_inputs(inputs))
     summary = BatchSummary()
     bar = tqdm(files, desc="explain", unit="case", file=sys.stderr, disable=not progress, dynamic_ncols=True)

@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from functools import cache
 from pathlib import Path
 from typing import Any
 
+import fastjsonschema
 from jsonschema import Draft202012Validator
 
 from casefile.errors import ValidationError
@@ -34,10 +36,26 @@ def validator(kind: str) -> Draft202012Validator:
     return Draft202012Validator(schema)
 
 
+@cache
+def _fast(kind: str) -> Callable[[Any], Any]:
+    validator(kind)  # the kind is known and its schema is a valid draft 2020-12 schema
+    return fastjsonschema.compile(json.loads(schema_path(kind).read_text(encoding="utf-8")))
+
+
 def validate(kind: str, body: Any) -> None:
-    """Raise ValidationError naming the kind, the first failing field and the reason."""
+    """Raise ValidationError naming the kind, the first failing field and the reason.
+
+    A compiled validator (fastjsonschema) decides quickly; when it refuses, the reference validator
+    (jsonschema) names the field. tests/ledger/test_schemas.py checks that the two agree.
+    """
+    try:
+        _fast(kind)(body)
+        return
+    except fastjsonschema.JsonSchemaException as exc:
+        fast_message = str(exc)
     v = validator(kind)
     error = next(iter(sorted(v.iter_errors(body), key=lambda e: list(e.absolute_path))), None)
     if error is not None:
         where = "/".join(str(p) for p in error.absolute_path) or "(top level)"
         raise ValidationError(f"{kind} body refused: at {where}: {error.message}")
+    raise ValidationError(f"{kind} body refused: {fast_message}")

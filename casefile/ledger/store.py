@@ -21,6 +21,8 @@ from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
 
 READ_CHUNK = 2000
+# one compiled INSERT per table, reused with parameters (no statement is rebuilt per row)
+_INSERT = {tb.name: insert(tb) for tb in (t.entries, *t.DERIVED_TABLES)}
 
 
 def utc_now() -> str:
@@ -196,8 +198,8 @@ class Ledger:
             seq += 1
             h = entry_hash(prev, kind, raw)
             self._store_blobs(conn, blob_list, digests)
-            conn.execute(insert(t.entries).values(seq=seq, kind=kind, body=raw.decode("utf-8"),
-                                                  prev_hash=prev, hash=h))
+            conn.execute(_INSERT["entries"], {"seq": seq, "kind": kind, "body": raw.decode("utf-8"),
+                                              "prev_hash": prev, "hash": h})
             self._insert_derived(conn, derive(seq, kind, clean, referenced))
             out.append(Entry(seq, kind, clean, prev, h, raw))
             prev = h
@@ -218,9 +220,8 @@ class Ledger:
 
     @staticmethod
     def _insert_derived(conn: Connection, rows: list[tuple[str, dict[str, Any]]]) -> None:
-        by_name = {tb.name: tb for tb in t.DERIVED_TABLES}
         for name, row in rows:
-            conn.execute(insert(by_name[name]).values(**row))
+            conn.execute(_INSERT[name], row)
 
     def rebuild_derived(self) -> int:
         """Recompute every query table from the entries (they are derived and may be rebuilt)."""

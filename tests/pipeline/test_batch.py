@@ -147,3 +147,18 @@ def test_python_api_records_a_known_prediction(tmp_path, few_inputs, honest):
     again = record_case(str(tmp_path / "api.db"), loaded, str(path), prediction="crack",
                         key=str(tmp_path / "site.key"))
     assert again.outcome == "skipped" and again.case_id == out.case_id
+
+
+def test_torchscript_with_gradcam_is_refused_before_any_input(tmp_path, few_inputs, demo_dir):
+    models = demo_dir / "scenario" / "models"
+    store = tmp_path / "ts.db"
+    done = cli(store, "explain", "--model", str(models / "casting-honest.ts"), "--card",
+               str(models / "casting-honest.card.json"), "-q", str(few_inputs))
+    assert done.returncode == 1 and "TorchScript" in done.stderr and done.stderr.count("\n") == 1
+    assert _count_cases(store) == 0
+    ok = cli(store, "explain", "--model", str(models / "casting-honest.ts"), "--card",
+             str(models / "casting-honest.card.json"), "--methods", "occlusion,gradient", "--patch", "16",
+             "--stride", "8", "-q", str(sorted(few_inputs.iterdir())[0]))
+    assert ok.returncode == 0, ok.stderr
+    led = Ledger(str(store), create=False)
+    assert led.count("case") == 1 and led.count("failed") == 0
