@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from json.encoder import encode_basestring
 from typing import Any
 
@@ -29,6 +30,7 @@ def format_number(x: float | int) -> str:
             x = float(x)  # exactly an IEEE double (e.g. 2**53): format it as one
         else:
             raise ValidationError(f"integer {x} is not exactly representable as an IEEE 754 double")
+    x = float(x)  # also numpy floats, whose repr is not a plain number
     if not math.isfinite(x):
         raise ValidationError(f"number {x!r} is not allowed in canonical JSON (NaN and infinities are refused)")
     if x == 0:
@@ -98,8 +100,73 @@ def _serialise(value: Any, out: list[str]) -> None:
         raise ValidationError(f"value of type {type(value).__name__} cannot be written as JSON")
 
 
+_PLACEHOLDER = re.compile(r'"\\u0000(\d+)\\u0000"')
+_ASTRAL = re.compile("[\U00010000-\U0010ffff]")
+
+
+def _swap_floats(value: Any, floats: list[float]) -> Any:
+    """A copy with each float replaced by a placeholder string; None when the fast path cannot be used."""
+    if isinstance(value, str):
+        return None if "\x00" in value else value
+    if value is None or isinstance(value, bool):
+        return value
+    if isinstance(value, int):
+        return value if abs(value) <= MAX_SAFE_INTEGER else None
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return None
+        floats.append(value)
+        return f"\x00{len(floats) - 1}\x00"
+    if isinstance(value, dict):
+        out = {}
+        for k, v in value.items():
+            if not isinstance(k, str) or "\x00" in k or (not k.isascii() and _ASTRAL.search(k)):
+                return None
+            item = _swap_floats(v, floats)
+            if item is None and v is not None:
+                return None
+            out[k] = item
+        return out
+    if isinstance(value, list | tuple):
+        items = []
+        for v in value:
+            item = _swap_floats(v, floats)
+            if item is None and v is not None:
+                return None
+            items.append(item)
+        return items
+    return None
+
+
+def _fast_canonical(value: Any) -> str | None:
+    """json's C encoder does the work when the result is provably the same as RFC 8785's:
+
+    keys without characters beyond U+FFFF (so code-point order is UTF-16 order), no NUL in any string
+    (the placeholders use it), safe integers; floats are put back in ECMAScript form afterwards.
+    """
+    floats: list[float] = []
+    swapped = _swap_floats(value, floats)
+    if swapped is None and value is not None:
+        return None
+    text = json.dumps(swapped, ensure_ascii=False, separators=(",", ":"), sort_keys=True)
+    if not floats:
+        return text
+    return _PLACEHOLDER.sub(lambda m: format_number(floats[int(m.group(1))]), text)
+
+
 def canonical_bytes(value: Any) -> bytes:
     """Return the RFC 8785 canonical form of ``value`` as UTF-8 bytes."""
+    fast = _fast_canonical(value)
+    if fast is not None:
+        try:
+            return fast.encode("utf-8")
+        except UnicodeEncodeError as exc:
+            raise ValidationError(f"text contains a lone surrogate ({exc.reason}), which is not valid UTF-8") from None
+    return _slow_canonical(value)
+
+
+def _slow_canonical(value: Any) -> bytes:
+    """The direct serialiser (used for what the fast path declines, and by the tests to cross-check)."""
     out: list[str] = []
     _serialise(value, out)
     try:

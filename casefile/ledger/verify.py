@@ -163,7 +163,8 @@ def verify(ledger: Ledger, seal_file: dict[str, Any] | None = None,
                 want: dict[tuple[str, int], list[tuple]] = {}
                 for name, row in expected_rows:
                     want.setdefault((name, seq), []).append(_norm(row))
-                for name in derived_tables:
+                names = {k[0] for k in want} | {n for n in derived_tables if (n, seq) in actual}
+                for name in sorted(names):
                     key = (name, seq)
                     if sorted(want.get(key, [])) != sorted(actual.get(key, [])):
                         return report.fail(seq, f"derived row disagrees: table {name!r} does not match "

@@ -8,7 +8,7 @@ import rfc8785
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from casefile.canonical import canonical_bytes, parse
+from casefile.canonical import _slow_canonical, canonical_bytes, parse
 from casefile.errors import ValidationError
 
 # RFC 8785 section 3.2.3, the example input and its canonical output (written from the RFC's text).
@@ -123,3 +123,24 @@ def test_numbers_round_trip_exactly(x):
     back = float(canonical_bytes(x).decode("ascii"))
     assert back == x or (x == 0 and back == 0)
     assert math.copysign(1, back) == 1 or x != 0
+
+
+awkward_text = st.text(st.characters(exclude_categories=("Cs",)), max_size=6) | st.sampled_from(
+    ["\x00", "a\x000\x00", "\U0001f600", "\ufb33", "\u20ac"])
+awkward_docs = st.recursive(json_scalars | awkward_text, lambda inner: st.lists(inner, max_size=4)
+                            | st.dictionaries(awkward_text, inner, max_size=4), max_leaves=20)
+
+
+@settings(max_examples=300, deadline=None)
+@given(awkward_docs)
+def test_fast_path_equals_the_direct_serialiser(doc):
+    # keys beyond the BMP and NUL characters force the direct path; both must give the same bytes
+    assert canonical_bytes(doc) == _slow_canonical(doc) == rfc8785.dumps(doc)
+
+
+def test_numpy_floats_format_as_plain_numbers():
+    import numpy as np
+
+    assert canonical_bytes({"p": np.float64(0.25), "q": [np.float64(1e21)]}) == b'{"p":0.25,"q":[1e+21]}'
+    with pytest.raises(ValidationError):  # not a float subclass: refused rather than guessed
+        canonical_bytes({"q": np.float32(0.5)})
