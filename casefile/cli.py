@@ -278,14 +278,17 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("explain", cmd_explain, "explain and record each input (files or folders); re-running skips "
              "inputs already recorded with the same model and settings")
     sp.add_argument("--model", required=True, metavar="FILE",
-                    help="TorchScript file, torch.export archive (.pt2), or package.module:factory")
+                    help="a state-dict file for the card's entry_point, a torch.export archive (.pt2), "
+                         "a TorchScript file (no Grad-CAM), or package.module:factory (card's weights)")
     sp.add_argument("--card", required=True, metavar="FILE", help="the model card (JSON)")
     sp.add_argument("--methods", default="gradcam,occlusion,gradient",
                     help="comma-separated: gradcam, occlusion, gradient (default all three)")
     sp.add_argument("--layer", metavar="NAME", help="Grad-CAM layer (default: the card's)")
-    sp.add_argument("--patch", type=int, metavar="N", help="occlusion patch size in model-input pixels")
-    sp.add_argument("--stride", type=int, metavar="N", help="occlusion stride")
-    sp.add_argument("--fill", metavar="V", help="occlusion fill: a number, 'mean' or 'blur'")
+    sp.add_argument("--patch", type=int, metavar="N", help="occlusion patch size in model-input pixels "
+                    "(default: a seventh of the smaller input side, 32 on a 224-pixel input)")
+    sp.add_argument("--stride", type=int, metavar="N", help="occlusion stride (default: half the patch)")
+    sp.add_argument("--fill", metavar="V", help="occlusion fill: a number (default 0, the normalised mean), "
+                    "'mean' or 'blur'")
     sp.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame DICOM file (0-based)")
     sp.add_argument("--uid-policy", choices=["keep-uids", "drop-uids"], default="keep-uids",
                     help="keep the Study/Series/SOP Instance UIDs (default) or drop them")
@@ -311,16 +314,22 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--calling-aet", default="CASEFILE", help="our AE title (with --pacs)")
 
     sp = add("sample", cmd_sample, "draw cases for a second read with a sampling plan; the draw is recorded")
-    sp.add_argument("--plan", required=True, choices=["random", "stratified", "risk", "lot"])
+    sp.add_argument("--plan", required=True, choices=["random", "stratified", "risk", "lot"],
+                    help="random: simple random sample; stratified: by label and/or status; risk: every flagged "
+                         "case plus a share of the rest (weighted estimate); lot: ISO 2859-1 single sampling")
     sp.add_argument("--size", type=int, metavar="N", help="sample size (random, stratified, risk)")
     sp.add_argument("--aql", type=float, metavar="A", help="acceptable quality limit in %% (lot plan)")
     sp.add_argument("--level", choices=["I", "II", "III"], default="II", help="general inspection level (lot)")
     sp.add_argument("--seed", type=int, default=0, metavar="S", help="seed; the same seed redraws the same list")
-    sp.add_argument("--allocation", choices=["proportional", "equal"], default="proportional")
-    sp.add_argument("--strata", choices=["label", "status", "label+status"], default="label")
+    sp.add_argument("--allocation", choices=["proportional", "equal"], default="proportional",
+                    help="stratified plan: sample in proportion to each stratum, or the same number from each")
+    sp.add_argument("--strata", choices=["label", "status", "label+status"], default="label",
+                    help="stratified plan: what defines a stratum")
     sp.add_argument("--share", type=float, metavar="P", help="risk plan: share of unflagged cases to draw")
-    for name in ("model", "label", "since", "until"):
-        sp.add_argument(f"--{name}", help=f"population filter: {name}")
+    sp.add_argument("--model", help="population filter: model name, name@version or digest prefix")
+    sp.add_argument("--label", help="population filter: predicted label")
+    sp.add_argument("--since", metavar="T", help="population filter: recorded at or after T (UTC)")
+    sp.add_argument("--until", metavar="T", help="population filter: recorded at or before T (UTC)")
     sp.add_argument("--status", choices=["pass", "warn", "fail", "not-run"], help="population filter: status")
 
     sp = add("review", cmd_review, "record a reader's verdict on a case")

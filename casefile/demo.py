@@ -40,12 +40,16 @@ def simulated_reviews(ledger: Ledger, draw_body: dict[str, Any], truth: dict[str
     """A simulated reader (the scenario's ground truth) reads every drawn case; marked as simulated."""
     from casefile.review import record_review
 
+    reader = "demo-reader (simulated)"
+    done = {r["case_id"] for r in ledger.rows("reviews") if r["reader"] == reader}
     n = 0
     for member in draw_body["members"]:
+        if member["case_id"] in done:  # running the demo again adds no second copy of a review
+            continue
         case = ledger.case(member["case_id"]).entry.body
         true_label = truth[case["input"]["file_name"]]["label"]
         verdict = "agree" if case["result"]["label"] == true_label else "disagree"
-        record_review(ledger, member["case_id"], reader="demo-reader (simulated)", verdict=verdict,
+        record_review(ledger, member["case_id"], reader=reader, verdict=verdict,
                       label=true_label, note="simulated second read from the demo scenario's ground truth")
         n += 1
     return n

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import re
 from collections.abc import Iterable, Iterator
@@ -10,7 +11,7 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import create_engine, event, func, insert, select
+from sqlalchemy import create_engine, event, func, select
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.exc import IntegrityError, OperationalError
 
@@ -21,8 +22,17 @@ from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
 
 READ_CHUNK = 2000
-# one compiled INSERT per table, reused with parameters (no statement is rebuilt per row)
-_INSERT = {tb.name: insert(tb) for tb in (t.entries, *t.DERIVED_TABLES)}
+# One plain INSERT per table at the driver level (qmark style, SQLite): appends are the hot path and
+# skip the statement compiler; the column order comes from the table definitions.
+_INSERT_SQL = {tb.name: (f"INSERT INTO {tb.name} ({', '.join(c.name for c in tb.columns)}) "
+                         f"VALUES ({', '.join('?' for _ in tb.columns)})", [c.name for c in tb.columns])
+               for tb in (t.entries, *t.DERIVED_TABLES)}
+_HEAD_SQL = "SELECT seq, hash FROM entries ORDER BY seq DESC LIMIT 1"
+
+
+def _insert_row(conn: Connection, table: str, row: dict[str, Any]) -> None:
+    sql, cols = _INSERT_SQL[table]
+    conn.exec_driver_sql(sql, tuple(row.get(c) for c in cols))
 
 
 def utc_now() -> str:
@@ -180,8 +190,9 @@ class Ledger:
         raw = canonical_bytes(body)
         blob_list = list(blob_iter or [])
         digests = [hashlib.sha256(b).hexdigest() for b in blob_list]
-        clean = parse(raw)
-        referenced = referenced_blobs(clean)
+        text = raw.decode("utf-8")
+        clean = json.loads(text)  # our own canonical bytes: the plain C parser reads them exactly
+        referenced = referenced_blobs_raw(text)
         stray = sorted(set(digests) - set(referenced))
         if stray:
             raise ValidationError(f"{kind} body refused: blob {stray[0][:12]}… is not referred to by the body")
@@ -189,8 +200,7 @@ class Ledger:
 
     def _write(self, conn: Connection, prepared: list[tuple]) -> list[Entry]:
         """Append prepared entries inside the caller's write transaction."""
-        head = conn.execute(select(t.entries.c.seq, t.entries.c.hash)
-                            .order_by(t.entries.c.seq.desc()).limit(1)).first()
+        head = conn.exec_driver_sql(_HEAD_SQL).first()
         seq, prev = (head[0], head[1]) if head else (0, t.GENESIS_HASH)
         out = []
         for kind, raw, clean, blob_list, digests, referenced in prepared:
@@ -198,8 +208,8 @@ class Ledger:
             seq += 1
             h = entry_hash(prev, kind, raw)
             self._store_blobs(conn, blob_list, digests)
-            conn.execute(_INSERT["entries"], {"seq": seq, "kind": kind, "body": raw.decode("utf-8"),
-                                              "prev_hash": prev, "hash": h})
+            _insert_row(conn, "entries", {"seq": seq, "kind": kind, "body": raw.decode("utf-8"),
+                                          "prev_hash": prev, "hash": h})
             self._insert_derived(conn, derive(seq, kind, clean, referenced))
             out.append(Entry(seq, kind, clean, prev, h, raw))
             prev = h
@@ -221,7 +231,7 @@ class Ledger:
     @staticmethod
     def _insert_derived(conn: Connection, rows: list[tuple[str, dict[str, Any]]]) -> None:
         for name, row in rows:
-            conn.execute(_INSERT[name], row)
+            _insert_row(conn, name, row)
 
     def rebuild_derived(self) -> int:
         """Recompute every query table from the entries (they are derived and may be rebuilt)."""
@@ -364,6 +374,8 @@ def referenced_blobs(body: Any) -> list[str]:
 def referenced_blobs_raw(raw: str) -> list[str]:
     """The same digests as ``referenced_blobs``, read straight from canonical JSON text (fast path)."""
     found: list[str] = []
+    if "_blob" not in raw:
+        return found
     for m in _RAW_REF.finditer(raw):
         if m.group(1):
             found.append(m.group(1))
