@@ -41,3 +41,56 @@ def format_table(rows: list[dict[str, Any]]) -> str:
         lines.append(f"{len(rows)} case(s)")
         return "\n".join(lines)
     return "\n".join(f"{r['seq']:>6}  {r['kind']:<10} {r['hash'][:16]}…" for r in rows)
+
+
+def amend_case(ledger: Ledger, case_id: str, *, author: str, reason: str,
+               changes: dict[str, Any] | None = None) -> Any:
+    """Record a correction to a case as a new amendment entry; the original stays as it was."""
+    from casefile.errors import ValidationError
+    from casefile.ledger import utc_now
+
+    if not author or not author.strip():
+        raise ValidationError(f"amendment of {case_id}: author is empty; say who makes the correction")
+    if not reason or not reason.strip():
+        raise ValidationError(f"amendment of {case_id}: reason is empty; say why the record is corrected")
+    entry = ledger.case(case_id).entry
+    body: dict[str, Any] = {"amends_seq": entry.seq, "amends_hash": entry.hash, "case_id": case_id,
+                            "author": author.strip(), "reason": reason.strip(), "amended_at": utc_now()}
+    if changes:
+        body["changes"] = changes
+    return ledger.append("amendment", body)
+
+
+def history(ledger: Ledger, case_id: str) -> list[dict[str, Any]]:
+    """Everything recorded about one case, in ledger order: the case, its amendments and reviews."""
+    hist = ledger.case(case_id)
+    rows = []
+    for e in hist.timeline():
+        row: dict[str, Any] = {"seq": e.seq, "kind": e.kind, "hash": e.hash}
+        b = e.body
+        if e.kind == "case":
+            row.update(recorded_at=b["recorded_at"], label=b["result"]["label"],
+                       confidence=b["result"]["confidence"], status=b["status"],
+                       model=f"{b['model']['name']}@{b['model']['version']}")
+        elif e.kind == "amendment":
+            row.update(amended_at=b["amended_at"], author=b["author"], reason=b["reason"],
+                       changes=b.get("changes", {}), amends_seq=b["amends_seq"])
+        else:
+            row.update({k: b.get(k) for k in ("reviewed_at", "reader", "verdict", "label", "note", "amends_seq")})
+        rows.append(row)
+    return rows
+
+
+def format_history(rows: list[dict[str, Any]]) -> str:
+    lines = []
+    for r in rows:
+        if r["kind"] == "case":
+            lines.append(f"seq {r['seq']:>6}  case       {r['recorded_at']}  {r['model']}: {r['label']} "
+                         f"({r['confidence']:.3f}), checks {r['status']}")
+        elif r["kind"] == "amendment":
+            lines.append(f"seq {r['seq']:>6}  amendment  {r['amended_at']}  by {r['author']}: {r['reason']} "
+                         f"{r['changes'] or ''}".rstrip())
+        else:
+            extra = f" label {r['label']}" if r.get("label") else ""
+            lines.append(f"seq {r['seq']:>6}  review     {r.get('reviewed_at')}  {r['reader']}: {r['verdict']}{extra}")
+    return "\n".join(lines)

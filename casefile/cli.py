@@ -223,6 +223,30 @@ def cmd_stats(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_amend(args: argparse.Namespace) -> int:
+    from casefile.audit import amend_case
+
+    changes = {"label": args.label} if args.label else None
+    entry = amend_case(_ledger(args), args.case_id, author=args.author, reason=args.reason, changes=changes)
+    if args.json:
+        _jsonl({"seq": entry.seq, "hash": entry.hash, **entry.body})
+    else:
+        print(f"amendment recorded as seq {entry.seq}; the original entry seq {entry.body['amends_seq']} is kept")
+    return 0
+
+
+def cmd_history(args: argparse.Namespace) -> int:
+    from casefile.audit import format_history, history
+
+    rows = history(_ledger(args), args.case_id)
+    if args.json:
+        for row in rows:
+            _jsonl(row)
+    else:
+        print(format_history(rows))
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from casefile.demo import run_demo
 
@@ -338,6 +362,15 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
     sp.add_argument("--label", metavar="L", help="the reader's label")
     sp.add_argument("--note", metavar="TEXT")
+
+    sp = add("history", cmd_history, "everything recorded about one case: the case, amendments, reviews")
+    sp.add_argument("case_id", metavar="CASE_ID")
+
+    sp = add("amend", cmd_amend, "record a correction to a case; the original entry stays visible")
+    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("--author", required=True, metavar="ID", help="who makes the correction")
+    sp.add_argument("--reason", required=True, metavar="TEXT", help="why the record is corrected")
+    sp.add_argument("--label", metavar="L", help="the corrected label, if that is the correction")
 
     add("stats", cmd_stats, "disagreement rates with intervals, kappa, confusion tables, lot decisions")
 

@@ -80,3 +80,19 @@ def test_audit_sample_review_stats(demo_dir, tmp_path):
     stats = json.loads(run(store, "stats", "--json").stdout)
     assert isinstance(stats, dict) and stats
     assert led.verify().ok
+
+
+def test_amend_keeps_the_original_and_history_shows_both(demo_dir, tmp_path):
+    store = _copy(demo_dir, tmp_path)
+    led = Ledger(str(store), create=False)
+    case = led.cases()[0]
+    before = led.get(case["seq"]).raw
+    done = run(store, "amend", case["case_id"], "--author", "qa-lead", "--reason", "label corrected at review",
+               "--label", "crack", "--json")
+    assert done.returncode == 0, done.stderr
+    assert led.get(case["seq"]).raw == before  # the original is untouched (21 CFR 11.10(e): not obscured)
+    rows = [json.loads(x) for x in run(store, "history", case["case_id"], "--json").stdout.splitlines()]
+    assert rows[0]["kind"] == "case" and rows[0]["seq"] == case["seq"]
+    assert rows[-1]["kind"] == "amendment" and rows[-1]["changes"] == {"label": "crack"}
+    assert run(store, "amend", case["case_id"], "--author", " ", "--reason", "x").returncode == 1
+    assert led.verify().ok
