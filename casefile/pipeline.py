@@ -178,7 +178,11 @@ def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: 
     existing = ledger.find_case_id(scan.file_sha256, scan.frame, loaded.digest, s_hash)
     if existing:
         entry = ledger.case(existing).entry
-        return Outcome(str(path), "skipped", existing, entry.seq, entry.hash, body=entry.body)
+        out = Outcome(str(path), "skipped", existing, entry.seq, entry.hash, body=entry.body)
+        if sheet_dir is not None:  # a re-run also fills in a sheet that is missing
+            sheet = Path(sheet_dir) / f"{existing}.pdf"
+            out.sheet = str(sheet if sheet.exists() else write_sheet(ledger, existing, sheet_dir))
+        return out
     try:
         rec = explain_scan(scan, loaded, settings, target=target,
                            source="caller" if target is not None else "casefile")
