@@ -43,6 +43,26 @@ def bare_engine(path: str, sync: str):
     return engine, tb
 
 
+def bare_same_rows(path: str, sync: str, bodies: list[dict]) -> float:
+    """The ledger's own rows (entry + case query row) with plain SQLAlchemy Core: no canonical JSON, no
+    schema check, no hashing, no triggers. Returns seconds for one transaction per entry."""
+    from casefile.ledger import tables as t
+    from casefile.ledger.derive import derive
+
+    engine, _ = bare_engine(path, sync)
+    t.metadata.create_all(engine)
+    rows = [(i, json.dumps(b), derive(i, "case", b, [])) for i, b in enumerate(bodies, 1)]
+    by_name = {tb.name: insert(tb) for tb in t.DERIVED_TABLES}
+    entry_stmt = insert(t.entries)
+    t0 = time.perf_counter()
+    for i, body, derived in rows:
+        with engine.begin() as conn:
+            conn.execute(entry_stmt, {"seq": i, "kind": "case", "body": body, "prev_hash": "", "hash": str(i)})
+            for name, row in derived:
+                conn.execute(by_name[name], row)
+    return time.perf_counter() - t0
+
+
 def main(n_append: int = 10_000, n_verify: int = 100_000) -> None:
     tmp = tempfile.mkdtemp()
     bodies = [case_body(i) for i in range(n_append)]
@@ -55,6 +75,7 @@ def main(n_append: int = 10_000, n_verify: int = 100_000) -> None:
             with engine.begin() as conn:
                 conn.execute(stmt, {"seq": i, "kind": "case", "body": json.dumps(b), "prev_hash": "", "hash": str(i)})
         bare = time.perf_counter() - t0
+        same = bare_same_rows(os.path.join(tmp, f"same-{sync}.db"), sync, bodies)
         led = Ledger(os.path.join(tmp, f"ledger-{sync}.db"), synchronous=sync)
         t0 = time.perf_counter()
         for b in bodies:
@@ -63,7 +84,9 @@ def main(n_append: int = 10_000, n_verify: int = 100_000) -> None:
         print(f"append {n_append} case bodies, one transaction each (WAL, synchronous={sync}):")
         print(f"  casefile ledger : {n_append / ours:8.0f} entries/s   (goal >= 1000/s)")
         print(f"  bare SQLAlchemy : {n_append / bare:8.0f} rows/s (no hashing, no schema, no query tables)")
-        print(f"  ratio ledger/bare time: {ours / bare:.2f}  (goal <= 1.5)")
+        print(f"  bare, same rows : {n_append / same:8.0f} entries/s (entry + query row, no hashing/schema/triggers)")
+        print(f"  ratio ledger/bare time: {ours / bare:.2f} vs one bare row; {ours / same:.2f} vs the same rows "
+              "(goal <= 1.5)")
     led = Ledger(os.path.join(tmp, "ledger-batch.db"))
     t0 = time.perf_counter()
     for j in range(0, n_append, 100):
