@@ -5,7 +5,7 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import Any, NamedTuple
 
 from sqlalchemy import select
 
@@ -67,8 +67,12 @@ def _bad_blobs(ledger: Ledger, report: VerifyReport) -> set[str]:
             last = rows[-1].digest
 
 
-def _norm(row: dict[str, Any]) -> tuple:
-    return tuple(sorted(row.items()))
+class _EntryRow(NamedTuple):
+    seq: int
+    kind: str
+    body: str
+    prev_hash: str
+    hash: str
 
 
 def _strict_problem(kind: str, body: Any, raw: bytes) -> str | None:
@@ -96,6 +100,8 @@ def verify(ledger: Ledger, seal_file: dict[str, Any] | None = None,
     report = VerifyReport()
     bad_blobs = _bad_blobs(ledger, report)
     derived_tables = {tb.name: tb for tb in t.DERIVED_TABLES}
+    # seq first in every table, so a fetched row's first value is its seq
+    columns = {name: ["seq", *(c.name for c in tb.columns if c.name != "seq")] for name, tb in derived_tables.items()}
     acc = MerkleAccumulator()
     sealed_size = seal_file["body"]["tree_size"] if seal_file else None
     sealed_root = sealed_hash = None
@@ -105,16 +111,18 @@ def verify(ledger: Ledger, seal_file: dict[str, Any] | None = None,
     with ledger.engine.connect() as conn:
         pos = 1
         while True:
-            rows = conn.execute(select(t.entries).where(t.entries.c.seq >= pos)
-                                .order_by(t.entries.c.seq).limit(READ_CHUNK)).all()
+            # plain driver-level tuples: this loop runs once per entry on ledgers of any size
+            rows = [_EntryRow(*r) for r in conn.exec_driver_sql(
+                "SELECT seq, kind, body, prev_hash, hash FROM entries WHERE seq >= ? ORDER BY seq LIMIT ?",
+                (pos, READ_CHUNK)).fetchall()]
             if not rows:
                 break
             lo, hi = rows[0].seq, rows[-1].seq
             actual: dict[tuple[str, int], list[tuple]] = {}
-            for name, tb in derived_tables.items():
-                for r in conn.execute(select(tb).where((tb.c.seq >= lo) & (tb.c.seq <= hi))):
-                    d = dict(r._mapping)
-                    actual.setdefault((name, d["seq"]), []).append(_norm(d))
+            for name, cols in columns.items():
+                sql = f"SELECT {', '.join(cols)} FROM {name} WHERE seq >= ? AND seq <= ?"
+                for r in conn.exec_driver_sql(sql, (lo, hi)).fetchall():
+                    actual.setdefault((name, r[0]), []).append(tuple(r))
             refs: dict[int, list[str]] = {}
             parsed: dict[int, Any] = {}
             for r in rows:
@@ -162,7 +170,7 @@ def verify(ledger: Ledger, seal_file: dict[str, Any] | None = None,
                     return report.fail(seq, f"body lacks a field the query tables need: {exc}")
                 want: dict[tuple[str, int], list[tuple]] = {}
                 for name, row in expected_rows:
-                    want.setdefault((name, seq), []).append(_norm(row))
+                    want.setdefault((name, seq), []).append(tuple(row.get(c) for c in columns[name]))
                 names = {k[0] for k in want} | {n for n in derived_tables if (n, seq) in actual}
                 for name in sorted(names):
                     key = (name, seq)
