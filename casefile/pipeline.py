@@ -199,7 +199,8 @@ def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: 
             cid = case_id_for(scan.file_sha256, scan.frame, loaded.digest, s_hash)
             e = ledger.case(cid).entry
             return Outcome(str(path), "skipped", cid, e.seq, e.hash, body=e.body)
-        raise
+        reason = f"{Path(path).name}: the case record was refused: {exc}"
+        return record_failure(ledger, path, reason, stage="record", loaded=loaded, settings_hash=s_hash)
     out = Outcome(str(path), "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
     if sheet_dir is not None:
         out.sheet = str(write_sheet(ledger, rec.case_id, sheet_dir))

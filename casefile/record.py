@@ -50,6 +50,23 @@ def software_versions(extra: dict[str, str] | None = None) -> dict[str, str]:
     return versions
 
 
+def _plain(value: Any) -> Any:
+    """JSON-ready copy of allow-listed metadata; a value that cannot be stored exactly is left out."""
+    if isinstance(value, dict):
+        out = {str(k): _plain(v) for k, v in value.items()}
+        return {k: v for k, v in out.items() if v is not None}
+    if isinstance(value, list | tuple):
+        items = [_plain(v) for v in value]
+        return None if any(v is None for v in items) else items
+    if isinstance(value, bool) or isinstance(value, str):
+        return value
+    if isinstance(value, int):
+        return value if abs(value) < 2**53 else None
+    if isinstance(value, float):
+        return value if np.isfinite(value) else None
+    return None
+
+
 def _top(scores: dict[str, Any], n: int = 3) -> list[dict[str, Any]]:
     ranked = sorted(((k, v) for k, v in scores.items() if v is not None), key=lambda kv: (-kv[1], kv[0]))
     return [{"label": k, "p": v} for k, v in ranked[:n]]
@@ -63,6 +80,9 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
     blobs: list[bytes] = [display_png]
     inp = scan.to_record()
     inp["display_blob"] = digest(display_png)
+    meta = _plain(dict(getattr(scan, "metadata", {}) or {}))
+    if meta:
+        inp["metadata"] = meta  # the imaging room's allow-list of technical attributes only
     maps = []
     for m in exp["maps"]:
         raw = explanation.map_bytes(m["method"])

@@ -48,7 +48,11 @@ def test_sheet_and_export(demo_dir, tmp_path):
     ds = pydicom.dcmread(tmp_path / "s.dcm")
     # PS3.4 B.5: Encapsulated PDF Storage SOP Class UID
     assert ds.SOPClassUID == "1.2.840.10008.5.1.4.1.1.104.1" and ds.Modality == "DOC"
-    assert ds.StudyInstanceUID == led.case(dcm_case["case_id"]).entry.body["input"]["study_uid"]
+    inp = led.case(dcm_case["case_id"]).entry.body["input"]
+    assert ds.StudyInstanceUID == inp["study_uid"]
+    # PS3.3 C.24.2 Source Instance Sequence points at the image the sheet explains
+    assert ds.SourceInstanceSequence[0].ReferencedSOPInstanceUID == inp["sop_uid"]
+    assert ds.SourceInstanceSequence[0].ReferencedSOPClassUID == inp["metadata"]["SOPClassUID"]
     # a PNG source has no study: the PDF is written and the reason given, exit 1
     done = run(store, "export", png_case["case_id"], "--dicom", str(tmp_path / "p.dcm"))
     assert done.returncode == 1 and "not a DICOM study" in done.stderr

@@ -45,3 +45,20 @@ def test_demo_left_sheets_seal_and_reviews(demo_dir):
     assert entry.hash in text.replace("\n", "")  # the verification code is the ledger entry hash
     assert led.count("draw") == 1 and led.count("review") >= 1 and led.count("seal") == 1
     assert led.verify(str(demo_dir / "seal.json"), public_key=str(demo_dir / "seal.key.pub")).ok
+
+
+def test_no_direct_identifier_reaches_the_ledger_or_a_sheet(demo_dir):
+    # the demo DICOM files carry a made-up PatientName, PatientID and InstitutionName (PS3.15 Annex E
+    # attributes); none may appear in any entry body, any blob, or any sheet
+    import sqlite3
+
+    needles = [b"Casting^Lot7", b"PART-Lot7", b"Example Foundry"]
+    con = sqlite3.connect(demo_dir / "casefile.db")
+    for (body,) in con.execute("SELECT body FROM entries"):
+        assert not any(n in body.encode() for n in needles)
+    for (data,) in con.execute("SELECT data FROM blobs"):
+        assert not any(n in bytes(data) for n in needles)
+    con.close()
+    for pdf in (demo_dir / "sheets").rglob("*.pdf"):
+        text = "".join(p.extract_text() for p in PdfReader(str(pdf)).pages).encode()
+        assert not any(n in text for n in needles)
