@@ -53,6 +53,8 @@ def test_no_direct_identifier_reaches_the_ledger_or_a_sheet(demo_dir):
     import sqlite3
 
     needles = [b"Casting^Lot7", b"PART-Lot7", b"Example Foundry"]
+    dicoms = sorted((demo_dir / "scenario" / "inputs").glob("*.dcm"))
+    assert dicoms and all(all(n in f.read_bytes() for n in needles) for f in dicoms)  # they are there to strip
     con = sqlite3.connect(demo_dir / "casefile.db")
     for (body,) in con.execute("SELECT body FROM entries"):
         assert not any(n in body.encode() for n in needles)
