@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import os
+import sys
 from collections.abc import Callable
 from functools import cache
 from pathlib import Path
@@ -13,7 +15,19 @@ from jsonschema import Draft202012Validator
 
 from casefile.errors import ValidationError
 
-SCHEMA_DIR = Path(__file__).resolve().parent.parent / "schemas"
+
+def _schema_dir() -> Path:
+    """schemas/ beside the package (a source checkout or editable install), else the copy a wheel
+    installs under <prefix>/share/casefile/schemas; $CASEFILE_SCHEMAS overrides both."""
+    candidates = [os.environ.get("CASEFILE_SCHEMAS"), Path(__file__).resolve().parent.parent / "schemas",
+                  Path(sys.prefix) / "share" / "casefile" / "schemas"]
+    for c in candidates:
+        if c and (Path(c) / "case.schema.json").is_file():
+            return Path(c)
+    return Path(__file__).resolve().parent.parent / "schemas"
+
+
+SCHEMA_DIR = _schema_dir()
 
 
 def schema_path(kind: str) -> Path:

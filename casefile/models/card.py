@@ -13,8 +13,9 @@ from jsonschema import Draft202012Validator
 
 from casefile.canonical import canonical_bytes
 from casefile.errors import ModelError, ValidationError
+from casefile.schemas import SCHEMA_DIR
 
-SCHEMA_PATH = Path(__file__).resolve().parents[2] / "schemas" / "model_card.schema.json"
+SCHEMA_PATH = SCHEMA_DIR / "model_card.schema.json"
 
 DEFAULT_RESIZE = "bilinear"
 
