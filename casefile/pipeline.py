@@ -10,9 +10,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from casefile.errors import CasefileError, InputError, ModelError, ValidationError
+from casefile.errors import CasefileError, ExplainError, InputError, ValidationError
 from casefile.ledger import Ledger, utc_now
-from casefile.record import CaseRecord, build, case_id_for, settings_digest, software_versions
+from casefile.record import CaseRecord, build, settings_digest, software_versions
 
 DEFAULT_METHODS = ("gradcam", "occlusion", "gradient")
 
@@ -164,44 +164,57 @@ def explain_scan(scan: Any, loaded: Any, settings: dict[str, Any], *, target: in
 
 def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: RunSettings | None = None,
                 *, key: str | None = None, sheet_dir: str | os.PathLike[str] | None = None,
-                target: int | None = None) -> Outcome:
-    """One input end to end. The case and its blobs are appended in one transaction, or not at all."""
+                target: int | None = None, settings: dict[str, Any] | None = None) -> Outcome:
+    """One input end to end. The case and its blobs are appended in one transaction, or not at all.
+
+    ``settings`` is ``run.resolve(loaded)`` when the caller has it already (a batch resolves it once).
+    """
     from casefile.imaging import load
 
     run = run or RunSettings()
-    settings = run.resolve(loaded)
-    s_hash = settings_digest(settings)
+    settings = settings if settings is not None else run.resolve(loaded)
     try:
         scan = load(path, frame=run.frame, key=key, window=loaded.card["windowing"], uid_policy=run.uid_policy)
     except CasefileError as exc:
-        return record_failure(ledger, path, str(exc), stage="load", loaded=loaded, settings_hash=s_hash)
+        return record_failure(ledger, path, str(exc), stage="load", loaded=loaded,
+                              settings_hash=settings_digest(settings))
+    return _record_scan(ledger, str(path), scan, loaded, settings, target=target, sheet_dir=sheet_dir)
+
+
+def _skipped(ledger: Ledger, name: str, case_id: str, sheet_dir: str | os.PathLike[str] | None) -> Outcome:
+    entry = ledger.case(case_id).entry
+    out = Outcome(name, "skipped", case_id, entry.seq, entry.hash, body=entry.body)
+    if sheet_dir is not None:  # a re-run also fills in a sheet that is missing
+        sheet = Path(sheet_dir) / f"{case_id}.pdf"
+        out.sheet = str(sheet if sheet.exists() else write_sheet(ledger, case_id, sheet_dir))
+    return out
+
+
+def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: dict[str, Any], *,
+                 target: int | None, sheet_dir: str | os.PathLike[str] | None) -> Outcome:
+    """A loaded scan: skip it when this run is recorded already, else explain, append and draw its sheet."""
+    s_hash = settings_digest(settings)
     existing = ledger.find_case_id(scan.file_sha256, scan.frame, loaded.digest, s_hash)
     if existing:
-        entry = ledger.case(existing).entry
-        out = Outcome(str(path), "skipped", existing, entry.seq, entry.hash, body=entry.body)
-        if sheet_dir is not None:  # a re-run also fills in a sheet that is missing
-            sheet = Path(sheet_dir) / f"{existing}.pdf"
-            out.sheet = str(sheet if sheet.exists() else write_sheet(ledger, existing, sheet_dir))
-        return out
+        return _skipped(ledger, name, existing, sheet_dir)
+    base = Path(name).name
     try:
         rec = explain_scan(scan, loaded, settings, target=target,
                            source="caller" if target is not None else "casefile")
     except CasefileError as exc:
-        return record_failure(ledger, path, str(exc), stage="explain", loaded=loaded, settings_hash=s_hash)
+        return record_failure(ledger, name, str(exc), stage="explain", loaded=loaded, settings_hash=s_hash)
     except (RuntimeError, ValueError) as exc:  # torch refuses something about this model or input
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        reason = f"{Path(path).name}: the explanation could not be computed: {first}"
-        return record_failure(ledger, path, reason, stage="explain", loaded=loaded, settings_hash=s_hash)
+        reason = f"{base}: the explanation could not be computed: {first}"
+        return record_failure(ledger, name, reason, stage="explain", loaded=loaded, settings_hash=s_hash)
     try:
         entry = ledger.append("case", rec.body, blobs=rec.blobs)
     except ValidationError as exc:
         if "already recorded" in str(exc):  # another process recorded it a moment ago
-            cid = case_id_for(scan.file_sha256, scan.frame, loaded.digest, s_hash)
-            e = ledger.case(cid).entry
-            return Outcome(str(path), "skipped", cid, e.seq, e.hash, body=e.body)
-        reason = f"{Path(path).name}: the case record was refused: {exc}"
-        return record_failure(ledger, path, reason, stage="record", loaded=loaded, settings_hash=s_hash)
-    out = Outcome(str(path), "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
+            return _skipped(ledger, name, rec.case_id, sheet_dir)
+        reason = f"{base}: the case record was refused: {exc}"
+        return record_failure(ledger, name, reason, stage="record", loaded=loaded, settings_hash=s_hash)
+    out = Outcome(name, "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
     if sheet_dir is not None:
         out.sheet = str(write_sheet(ledger, rec.case_id, sheet_dir))
     return out
@@ -220,15 +233,19 @@ def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str], **
     return target
 
 
-def preflight(loaded: Any, run: RunSettings) -> None:
-    """Refuse, before any input is touched, a run that cannot work for this model at all."""
-    import torch
+def preflight(loaded: Any, run: RunSettings) -> dict[str, Any]:
+    """Refuse, before any input is touched, a run that cannot work for this model at all; return the
+    resolved settings (unknown explanation settings fail here, once, not per input)."""
+    from casefile.explain.gradcam import hookable_layer
 
-    if "gradcam" in run.methods and isinstance(loaded.module, torch.jit.ScriptModule):
-        raise ModelError(f"{loaded.source.get('file_name', 'model')}: Grad-CAM needs forward hooks, which "
-                         "TorchScript modules do not allow; load a .pt2 archive or an entry point with its "
-                         "state dict, or choose --methods occlusion,gradient")
-    run.resolve(loaded)  # unknown explanation settings fail here, once
+    settings = run.resolve(loaded)
+    if "gradcam" in run.methods:
+        try:
+            hookable_layer(loaded.module, settings["layer"])
+        except ExplainError as exc:
+            raise ExplainError(f"{loaded.source.get('file_name', 'model')}: {exc} "
+                               "(or choose --methods occlusion,gradient)") from None
+    return settings
 
 
 def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: Any,
@@ -238,13 +255,14 @@ def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], load
     """Every input in order; bad inputs are recorded as failed attempts and the batch goes on."""
     from tqdm import tqdm
 
-    preflight(loaded, run or RunSettings())
+    run = run or RunSettings()
+    settings = preflight(loaded, run)
     files = list(iter_inputs(inputs))
     summary = BatchSummary()
     bar = tqdm(files, desc="explain", unit="case", file=sys.stderr, disable=not progress, dynamic_ncols=True)
     try:
         for path in bar:
-            out = explain_one(ledger, path, loaded, run, key=key, sheet_dir=sheet_dir)
+            out = explain_one(ledger, path, loaded, run, key=key, sheet_dir=sheet_dir, settings=settings)
             summary.outcomes.append(out)
             if out.outcome == "recorded":
                 summary.recorded += 1
@@ -282,12 +300,5 @@ def record_case(ledger: Ledger | str, model: Any, input: Any, *, prediction: int
                 raise InputError(f"prediction index {target} is outside 0..{len(model.labels) - 1}")
     if isinstance(input, str | os.PathLike):
         return explain_one(led, input, model, run, key=key, target=target)
-    run = run or RunSettings()
-    settings = run.resolve(model)
-    rec = explain_scan(input, model, settings, target=target, source="caller" if target is not None else "casefile")
-    existing = led.find_case_id(input.file_sha256, input.frame, model.digest, settings_digest(settings))
-    if existing:
-        e = led.case(existing).entry
-        return Outcome(input.file_name, "skipped", existing, e.seq, e.hash, body=e.body)
-    entry = led.append("case", rec.body, blobs=rec.blobs)
-    return Outcome(input.file_name, "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
+    settings = (run or RunSettings()).resolve(model)
+    return _record_scan(led, input.file_name, input, model, settings, target=target, sheet_dir=None)

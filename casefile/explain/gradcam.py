@@ -20,9 +20,20 @@ from ._common import (
 )
 
 
+def hookable_layer(module: nn.Module, layer: str) -> nn.Module:
+    """The submodule ``layer``, refused with a one-line ExplainError when it cannot take a forward hook."""
+    sub = get_layer(module, layer)
+    if isinstance(sub, torch.jit.ScriptModule):
+        raise ExplainError(
+            f"layer {layer!r}: Grad-CAM needs a forward hook, which TorchScript modules do not allow;"
+            " use a torch.export archive (.pt2) or a Python entry point for this model"
+        )
+    return sub
+
+
 def _capture(module: nn.Module, x: torch.Tensor, layer: str) -> tuple[torch.Tensor, torch.Tensor]:
     """Forward ``x`` with a hook on ``layer``; return (logits, the layer's activation)."""
-    sub = get_layer(module, layer)
+    sub = hookable_layer(module, layer)
     captured: list[torch.Tensor] = []
 
     def hook(_m: nn.Module, _inp: object, out: object) -> object:
@@ -33,11 +44,6 @@ def _capture(module: nn.Module, x: torch.Tensor, layer: str) -> tuple[torch.Tens
         # overwrite the activation we keep; the values seen by the rest of the model are identical.
         return out.clone()
 
-    if isinstance(sub, torch.jit.ScriptModule):
-        raise ExplainError(
-            f"layer {layer!r}: Grad-CAM needs a forward hook, which TorchScript modules do not allow;"
-            " use a torch.export archive (.pt2) or a Python entry point for this model"
-        )
     handle = sub.register_forward_hook(hook)
     try:
         with torch.enable_grad():

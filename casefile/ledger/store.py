@@ -91,8 +91,7 @@ class Ledger:
             raise LedgerError(f"synchronous must be FULL or NORMAL, not {synchronous!r}")
         self.synchronous = synchronous.upper()
         self.url = _url(url)
-        self.is_sqlite = self.url.startswith("sqlite")
-        if not self.is_sqlite:
+        if not self.url.startswith("sqlite"):
             raise LedgerError(f"{url}: only SQLite ledgers are supported in this release")
         path = self.url[len("sqlite:///"):]
         if not create and not os.path.exists(path):
@@ -192,7 +191,7 @@ class Ledger:
         digests = [hashlib.sha256(b).hexdigest() for b in blob_list]
         text = raw.decode("utf-8")
         clean = json.loads(text)  # our own canonical bytes: the plain C parser reads them exactly
-        referenced = referenced_blobs_raw(text)
+        referenced = referenced_blobs(text)
         stray = sorted(set(digests) - set(referenced))
         if stray:
             raise ValidationError(f"{kind} body refused: blob {stray[0][:12]}… is not referred to by the body")
@@ -240,7 +239,7 @@ class Ledger:
                 conn.execute(tb.delete())
             n = 0
             for e in self.entries(conn=conn):
-                self._insert_derived(conn, derive(e.seq, e.kind, e.body, referenced_blobs(e.body)))
+                self._insert_derived(conn, derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8"))))
                 n += 1
         return n
 
@@ -353,26 +352,10 @@ _HEX64 = re.compile(r"^[0-9a-f]{64}$")
 _RAW_REF = re.compile(r'"[A-Za-z0-9_]*_blob":"([0-9a-f]{64})"|"[A-Za-z0-9_]*_blobs":\[([^\]]*)\]')
 
 
-def referenced_blobs(body: Any) -> list[str]:
-    """Digests (64 lowercase hex) named in fields ending in _blob, or in lists under keys ending in _blobs."""
-    found: list[str] = []
-
-    def walk(x: Any, key: str = "") -> None:
-        if isinstance(x, dict):
-            for k, v in x.items():
-                walk(v, k)
-        elif isinstance(x, list):
-            for v in x:
-                walk(v, key)
-        elif isinstance(x, str) and (key.endswith("_blob") or key.endswith("_blobs")) and _HEX64.match(x):
-            found.append(x)
-
-    walk(body)
-    return found
-
-
-def referenced_blobs_raw(raw: str) -> list[str]:
-    """The same digests as ``referenced_blobs``, read straight from canonical JSON text (fast path)."""
+def referenced_blobs(raw: str) -> list[str]:
+    """Digests (64 lowercase hex) a body names in fields ending in _blob, or in string lists under keys
+    ending in _blobs, read straight from its canonical JSON text (a quote inside a string value is
+    always escaped there, so text inside a value cannot look like a field)."""
     found: list[str] = []
     if "_blob" not in raw:
         return found

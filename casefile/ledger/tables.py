@@ -127,5 +127,4 @@ SQLITE_TRIGGERS = [
        BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: a new entry must extend the head'); END""",
 ]
 
-TRIGGER_NAMES = ["entries_no_update", "entries_no_delete", "blobs_no_update", "blobs_no_delete",
-                 "entries_extend_head"]
+TRIGGER_NAMES = [ddl.split("IF NOT EXISTS", 1)[1].split()[0] for ddl in SQLITE_TRIGGERS]

@@ -16,7 +16,7 @@ from casefile.ledger import tables as t
 from casefile.ledger.derive import derive
 from casefile.ledger.merkle import MerkleAccumulator
 from casefile.ledger.seal import signature_ok
-from casefile.ledger.store import READ_CHUNK, Ledger, entry_hash, referenced_blobs_raw
+from casefile.ledger.store import READ_CHUNK, Ledger, entry_hash, referenced_blobs
 
 
 @dataclass
@@ -130,7 +130,7 @@ def verify(ledger: Ledger, seal_file: dict[str, Any] | None = None,
                     # the hash check below proves these bytes are what append wrote (strict JSON,
                     # canonical); the plain C parser is enough here, --strict re-parses strictly
                     parsed[r.seq] = json.loads(r.body)
-                    refs[r.seq] = referenced_blobs_raw(r.body)
+                    refs[r.seq] = referenced_blobs(r.body)
                 except ValueError as exc:
                     parsed[r.seq] = ValidationError(str(exc))
                     refs[r.seq] = []

@@ -18,13 +18,13 @@ from casefile.imaging import load
 from .synth import bundled, write_dicom
 
 
-def one_line_error(path: Path, key: Path, pattern: str) -> str:
+def one_line_error(path: Path, key: Path) -> str:
+    """The InputError message for ``path``, checked to be one line that starts with the file's name."""
     with pytest.raises(InputError) as info:
         load(path, key=key)
     message = str(info.value)
     assert "\n" not in message
     assert message.startswith(f"{path.name}: "), message
-    assert pattern in message, message
     return message
 
 
@@ -47,7 +47,7 @@ def one_line_error(path: Path, key: Path, pattern: str) -> str:
 def test_pydicom_odd_files(name: str, pattern: str, tmp_path: Path, site_key: Path) -> None:
     copy = tmp_path / name
     shutil.copyfile(bundled(name), copy)
-    one_line_error(copy, site_key, pattern)
+    assert pattern in one_line_error(copy, site_key)
 
 
 def test_truncated_png(tmp_path: Path, site_key: Path) -> None:
@@ -55,17 +55,17 @@ def test_truncated_png(tmp_path: Path, site_key: Path) -> None:
     Image.fromarray(np.random.default_rng(0).integers(0, 255, (48, 48), dtype=np.uint8)).save(buf, "PNG")
     cut = tmp_path / "cut.png"
     cut.write_bytes(buf.getvalue()[: len(buf.getvalue()) // 2])
-    one_line_error(cut, site_key, "PNG image cannot be decoded")
+    assert "PNG image cannot be decoded" in one_line_error(cut, site_key)
 
 
 def test_missing_and_empty_files(tmp_path: Path, site_key: Path) -> None:
-    one_line_error(tmp_path / "absent.dcm", site_key, "file not found")
+    assert "file not found" in one_line_error(tmp_path / "absent.dcm", site_key)
     empty = tmp_path / "empty.png"
     empty.write_bytes(b"")
-    one_line_error(empty, site_key, "file is empty")
+    assert "file is empty" in one_line_error(empty, site_key)
     folder = tmp_path / "folder.dcm"
     folder.mkdir()
-    one_line_error(folder, site_key, "folder")
+    assert "folder" in one_line_error(folder, site_key)
 
 
 def test_bad_window_argument(tmp_path: Path, site_key: Path) -> None:

@@ -51,7 +51,7 @@ def test_inclusion_paths_by_hand():
 
 
 def _reference_mth(leaves: list[bytes]) -> bytes:
-    """Straight transcription of the recursive definition in RFC 6962 section 2.1."""
+    """MTH(D[n]) exactly as RFC 6962 section 2.1 defines it, recursively (the check for the streaming form)."""
     n = len(leaves)
     if n == 0:
         return H(b"")

@@ -139,7 +139,7 @@ def _rewrite(path: Path, rows: list[tuple[str, bytes]], *, rechain: bool) -> Non
             p, h = old[old_seq][3], old[old_seq][4]
         con.execute("INSERT INTO entries VALUES (?, ?, ?, ?, ?)", (seq, kind, body.decode(), p, h))
         parsed = json.loads(body)
-        for name, row in derive(seq, kind, parsed, referenced_blobs(parsed)):
+        for name, row in derive(seq, kind, parsed, referenced_blobs(body.decode())):
             cols = ", ".join(row)
             con.execute(f"INSERT INTO {name} ({cols}) VALUES ({', '.join('?' * len(row))})", tuple(row.values()))
         prev = h

@@ -162,3 +162,20 @@ def test_torchscript_with_gradcam_is_refused_before_any_input(tmp_path, few_inpu
     assert ok.returncode == 0, ok.stderr
     led = Ledger(str(store), create=False)
     assert led.count("case") == 1 and led.count("failed") == 0
+
+
+def test_python_api_with_a_scan_checks_the_ledger_before_explaining(tmp_path, few_inputs, honest, monkeypatch):
+    from casefile import pipeline
+    from casefile.imaging import load
+
+    loaded = load_model(*honest)
+    scan = load(sorted(few_inputs.iterdir())[1], key=str(tmp_path / "site.key"))
+    first = record_case(str(tmp_path / "api.db"), loaded, scan)
+    assert first.outcome == "recorded" and first.body["result"]["source"] == "casefile"
+
+    def explain_again(*_a, **_k):
+        raise AssertionError("an input already recorded must not be explained again")
+
+    monkeypatch.setattr(pipeline, "explain_scan", explain_again)
+    again = record_case(str(tmp_path / "api.db"), loaded, scan)
+    assert again.outcome == "skipped" and again.case_id == first.case_id
