@@ -139,22 +139,12 @@ def cmd_explain(args: argparse.Namespace) -> int:
 
 def cmd_sheet(args: argparse.Namespace) -> int:
     from casefile.pipeline import write_sheet
-    from casefile.sheet import sheet_for_case
 
     led = _ledger(args)
-    opts = {"page_size": args.page_size}
-    if len(args.case_ids) > 1 or args.dir:
-        folder = args.dir or "."
-        for cid in args.case_ids:
-            path = write_sheet(led, cid, folder, **opts)
-            print(path)
-        return 0
-    cid = args.case_ids[0]
-    out = args.output or f"{cid}.pdf"
-    data = sheet_for_case(led, cid, **opts)
-    with open(out, "wb") as f:
-        f.write(data)
-    print(out)
+    if args.output and (len(args.case_ids) > 1 or args.dir):
+        raise CasefileError("sheet: -o names one file; use --dir for several cases")
+    for cid in args.case_ids:
+        print(write_sheet(led, cid, args.dir, path=args.output, page_size=args.page_size))
     return 0
 
 

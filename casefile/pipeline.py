@@ -220,13 +220,14 @@ def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: di
     return out
 
 
-def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str], **opts: Any) -> Path:
-    """Render the case sheet into ``folder``/<case_id>.pdf (written whole, then renamed into place)."""
+def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str] | None = None, *,
+                path: str | os.PathLike[str] | None = None, **opts: Any) -> Path:
+    """Render the case sheet to ``path``, or to ``folder``/<case_id>.pdf; written whole, then renamed into
+    place, so a reader never sees half a PDF."""
     from casefile.sheet import sheet_for_case
 
-    out = Path(folder)
-    out.mkdir(parents=True, exist_ok=True)
-    target = out / f"{case_id}.pdf"
+    target = Path(path) if path is not None else Path(folder or ".") / f"{case_id}.pdf"
+    target.parent.mkdir(parents=True, exist_ok=True)
     tmp = target.with_suffix(".pdf.part")
     tmp.write_bytes(sheet_for_case(ledger, case_id, **opts))
     os.replace(tmp, target)
