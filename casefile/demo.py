@@ -9,8 +9,8 @@ import time
 from pathlib import Path
 from typing import Any
 
+from casefile.cautions import CAUTION_TEXT
 from casefile.ledger import Ledger, generate_key, seal_file_bytes
-from casefile.sheet.cautions import CAUTION_TEXT
 
 # Occlusion on the 64-pixel demo models: 16-pixel patches (a quarter of the side), stride 8 → 7×7 grid.
 DEMO_PATCH, DEMO_STRIDE = 16, 8

@@ -11,8 +11,8 @@ import numpy as np
 
 from casefile import __version__
 from casefile.canonical import canonical_bytes
+from casefile.cautions import CAUTION_TEXT
 from casefile.ledger.derive import run_key
-from casefile.sheet.cautions import CAUTION_TEXT
 
 
 @dataclass(frozen=True)

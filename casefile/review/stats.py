@@ -26,15 +26,13 @@ from collections.abc import Mapping
 from itertools import combinations
 from typing import Any
 
+from casefile.cautions import AGREEMENT_CAUTION
 from casefile.ledger import Ledger
 from casefile.review.agreement import cohen_kappa, confusion_table, horvitz_thompson, wilson_interval
 from casefile.review.lot import lot_decision
 from casefile.review.store import current_reviews
 
 Z95 = 1.959963984540054  # standard normal 0.975 quantile
-CAUTION = ("Agreement figures compare the model with human readers; they are not a diagnosis or an "
-           "inspection verdict. Decisions rest with qualified staff under local clinical, regulatory and "
-           "inspection practice.")
 
 
 def reader_label(review: Mapping[str, Any], model_label: str) -> str | None:
@@ -124,7 +122,7 @@ def summarise_data(draws: list[Mapping[str, Any]], reviews: list[Mapping[str, An
                     "note": "unweighted, over every reviewed case"},
         "agreement": agreement(current, model_labels),
         "pending": pending,
-        "caution": CAUTION,
+        "caution": AGREEMENT_CAUTION,
     }
 
 

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 from typing import Any
 
+from casefile.cautions import CAUTION_TEXT, CAUTIONS
+
 from ..errors import InputError, LedgerError
 from .batch import render_many
-from .cautions import CAUTION_TEXT, CAUTIONS
 from .colours import colour_lut, overlay, png_bytes, scale_bar
 from .layout import render_sheet
 

@@ -12,9 +12,10 @@ from reportlab import rl_config
 from reportlab.lib.pagesizes import A4, LETTER
 from reportlab.pdfgen.canvas import Canvas
 
+from casefile.cautions import CAUTION_TITLE, CAUTIONS
+
 from .. import __version__
 from ..errors import InputError
-from .cautions import CAUTION_TITLE, CAUTIONS
 from .draw import (
     BAND,
     GREY,

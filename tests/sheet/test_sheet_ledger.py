@@ -8,10 +8,9 @@ import re
 import pytest
 from pypdf import PdfReader
 
+from casefile import ledger as ledger_mod
 from casefile.errors import CasefileError
 from casefile.sheet import render_many, sheet_for_case, sheets_for_cases
-
-ledger_mod = pytest.importorskip("casefile.ledger")
 
 
 def _strip(body: dict) -> dict:

@@ -1,4 +1,7 @@
-"""The caution texts printed on every case sheet, and reused by the README and the review page."""
+"""The caution texts: on every case sheet, in every case record, in the statistics and the review page.
+
+They live below every room that prints them (record, sheet, review, demo, server), so no room reaches
+into another for its words. The README says the same in its own paragraph."""
 
 from __future__ import annotations
 
@@ -20,3 +23,10 @@ CAUTION_CHECKS = (
 
 CAUTIONS: tuple[str, ...] = (CAUTION_INFLUENCE, CAUTION_NOT_VERDICT, CAUTION_DECISIONS, CAUTION_CHECKS)
 CAUTION_TEXT = " ".join(CAUTIONS)
+
+# Second-read figures (the stats command, the sheet's review panel, reports and the review page).
+AGREEMENT_CAUTION = (
+    "Agreement figures compare the model with human readers; they are not a diagnosis or an "
+    "inspection verdict. Decisions rest with qualified staff under local clinical, regulatory and "
+    "inspection practice."
+)
