@@ -13,7 +13,7 @@ from typing import Any
 
 from sqlalchemy import create_engine, event, func, select
 from sqlalchemy.engine import Connection, Engine
-from sqlalchemy.exc import IntegrityError, OperationalError
+from sqlalchemy.exc import DatabaseError, IntegrityError, OperationalError
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
@@ -103,7 +103,7 @@ class Ledger:
         self.engine = self._make_engine()
         try:
             self._create()
-        except OperationalError as exc:
+        except DatabaseError as exc:  # also "file is not a database"
             raise LedgerError(f"{path}: cannot open ledger: {exc.orig}") from None
 
     def _make_engine(self) -> Engine:

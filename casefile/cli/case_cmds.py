@@ -1,0 +1,158 @@
+"""Commands that make and show case records: explain, sheet, export, demo."""
+
+from __future__ import annotations
+
+import argparse
+from typing import TYPE_CHECKING
+
+from casefile.cli.common import command, err, jsonl, open_ledger, positive_int
+
+if TYPE_CHECKING:
+    from casefile.pipeline import Outcome, RunSettings
+
+METHOD_NAMES = ("gradcam", "occlusion", "gradient")  # casefile.explain.METHODS; checked equal by a test
+
+
+def method_list(text: str) -> tuple[str, ...]:
+    """``gradcam,occlusion`` → ("gradcam", "occlusion"); an unknown or empty name is a usage error."""
+    names = tuple(m.strip() for m in text.split(","))
+    unknown = [m for m in names if m not in METHOD_NAMES]
+    if unknown or not names:
+        shown = ", ".join(repr(m) for m in unknown) or "none"
+        raise argparse.ArgumentTypeError(f"unknown method {shown}; choose from {', '.join(METHOD_NAMES)}")
+    return tuple(dict.fromkeys(names))
+
+
+def _fill(text: str) -> float | str:
+    try:
+        return float(text)
+    except ValueError:
+        if text in ("mean", "blur"):
+            return text
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number, 'mean' or 'blur'") from None
+
+
+def _run_settings(args: argparse.Namespace) -> RunSettings:
+    from casefile.pipeline import RunSettings
+
+    return RunSettings(methods=args.methods, layer=args.layer, patch=args.patch, stride=args.stride,
+                       fill=args.fill, frame=args.frame, uid_policy=args.uid_policy)
+
+
+def cmd_explain(args: argparse.Namespace) -> int:
+    from casefile.models import load_model
+    from casefile.pipeline import explain_batch
+
+    loaded = load_model(args.model, args.card)
+    led = open_ledger(args, create=True)
+
+    def show(out: Outcome) -> None:
+        if args.json:
+            jsonl(out.json_line())
+        elif out.outcome == "failed":
+            err(f"failed: {out.input}: {out.reason}")
+
+    summary = explain_batch(led, args.inputs, loaded, _run_settings(args), key=args.site_key,
+                            sheet_dir=args.sheets, progress=not args.quiet, on_outcome=show)
+    err(summary.text())
+    if summary.interrupted:
+        return 130
+    return 1 if summary.failed else 0
+
+
+def cmd_sheet(args: argparse.Namespace) -> int:
+    from casefile.pipeline import write_sheet
+
+    led = open_ledger(args)
+    for cid in args.case_ids:
+        print(write_sheet(led, cid, args.dir, path=args.output, page_size=args.page_size))
+    return 0
+
+
+def _sheet_usage(args: argparse.Namespace) -> str | None:
+    if args.output and (len(args.case_ids) > 1 or args.dir):
+        return "-o names one file; use --dir for several cases"
+    return None
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    from casefile.exchange import export_case
+    from casefile.sheet import case_inputs, render_sheet
+
+    led = open_ledger(args)
+    inputs = case_inputs(led, args.case_id)
+    case = inputs.pop("case")
+    pdf = render_sheet(case, **inputs)
+    if args.dicom:
+        out = export_case(case, pdf, dicom_path=args.dicom, entry_hash=inputs["entry_hash"])
+        if out.reason:
+            err(f"casefile export: {args.case_id}: {out.reason}; the PDF was written to {out.pdf_path}")
+            return 1
+        print(out.dicom_path)
+        return 0
+    from casefile.exchange import encapsulated_pdf_for_case, push
+
+    host, _, port = args.pacs.rpartition(":")
+    ds = encapsulated_pdf_for_case(case, pdf, entry_hash=inputs["entry_hash"])
+    for status in push([ds], host, int(port), args.called_aet, calling_aet=args.calling_aet):
+        print(status)
+    return 0
+
+
+def _export_usage(args: argparse.Namespace) -> str | None:
+    if args.pacs:
+        host, _, port = args.pacs.rpartition(":")
+        if not host or not port.isdigit() or not 0 < int(port) < 65536:
+            return f"--pacs {args.pacs!r}: expected HOST:PORT with a port from 1 to 65535"
+    return None
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from casefile.demo import run_demo
+
+    return run_demo(args.dir)
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    sp = command(sub, "explain", cmd_explain, "explain and record each input (files or folders); re-running "
+                 "skips inputs already recorded with the same model and settings")
+    sp.add_argument("--model", required=True, metavar="FILE",
+                    help="a state-dict file for the card's entry_point, a torch.export archive (.pt2), "
+                         "a TorchScript file (no Grad-CAM), or package.module:factory (card's weights)")
+    sp.add_argument("--card", required=True, metavar="FILE", help="the model card (JSON)")
+    sp.add_argument("--methods", default=METHOD_NAMES, type=method_list, metavar="LIST",
+                    help="comma-separated: gradcam, occlusion, gradient (default all three)")
+    sp.add_argument("--layer", metavar="NAME", help="Grad-CAM layer (default: the card's)")
+    sp.add_argument("--patch", type=positive_int, metavar="N", help="occlusion patch size in model-input "
+                    "pixels (default: a seventh of the smaller input side, 32 on a 224-pixel input)")
+    sp.add_argument("--stride", type=positive_int, metavar="N", help="occlusion stride (default: half the patch)")
+    sp.add_argument("--fill", metavar="V", type=_fill, help="occlusion fill: a number (default 0, the "
+                    "normalised mean), 'mean' or 'blur'")
+    sp.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame DICOM file (0-based)")
+    sp.add_argument("--uid-policy", choices=["keep-uids", "drop-uids"], default="keep-uids",
+                    help="keep the Study/Series/SOP Instance UIDs (default) or drop them")
+    sp.add_argument("--site-key", metavar="FILE", help="site key for pseudonyms (default $CASEFILE_SITE_KEY "
+                    "or ~/.config/casefile/site.key, created on first use)")
+    sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
+    sp.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+    sp.add_argument("inputs", nargs="+", metavar="INPUT", help="image files or folders (searched recursively)")
+
+    sp = command(sub, "sheet", cmd_sheet, "render the PDF case sheet of one or more cases", json_=False,
+                 check=_sheet_usage)
+    sp.add_argument("case_ids", nargs="+", metavar="CASE_ID")
+    sp.add_argument("-o", "--output", metavar="FILE", help="output file for one case (default CASE_ID.pdf)")
+    sp.add_argument("--dir", metavar="DIR", help="write each sheet as DIR/CASE_ID.pdf")
+    sp.add_argument("--page-size", choices=["A4", "letter"], default="A4")
+
+    sp = command(sub, "export", cmd_export, "wrap a case sheet as a DICOM Encapsulated PDF, to a file or an "
+                 "archive", json_=False, check=_export_usage)
+    sp.add_argument("case_id", metavar="CASE_ID")
+    where = sp.add_mutually_exclusive_group(required=True)
+    where.add_argument("--dicom", metavar="FILE.dcm", help="write the DICOM object here")
+    where.add_argument("--pacs", metavar="HOST:PORT", help="send it to this archive with C-STORE")
+    sp.add_argument("--called-aet", default="ANY-SCP", help="the archive's AE title (with --pacs)")
+    sp.add_argument("--calling-aet", default="CASEFILE", help="our AE title (with --pacs)")
+
+    sp = command(sub, "demo", cmd_demo, "run the whole job on the synthetic scenario", json_=False)
+    sp.add_argument("--dir", default="demo_out", help="where to write the demo (default ./demo_out)")
+
