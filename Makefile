@@ -13,7 +13,9 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PY) -m venv $(VENV)
 	$(BIN)/pip install -q --upgrade pip
 	$(BIN)/pip install -q $(TORCH_CPU)
-	$(BIN)/pip install -q -e '.[test]'
+	# setuptools warns on every editable install that a same-named folder may shadow the package; here
+	# that folder is the package itself, so the warning says nothing and is silenced (that one only).
+	PYTHONWARNINGS='ignore:Editable installation' $(BIN)/pip install -q -e '.[test]'
 	touch $(STAMP)
 
 demo: $(STAMP)
