@@ -113,7 +113,8 @@ def _run_settings(args: argparse.Namespace) -> Any:
         except ValueError:
             fill = args.fill
     return RunSettings(methods=methods, layer=args.layer, patch=args.patch, stride=args.stride, fill=fill,
-                       frame=args.frame, uid_policy=args.uid_policy)
+                       frame=args.frame, uid_policy=args.uid_policy, max_pixels=args.max_pixels,
+                       max_file_pixels=args.max_file_pixels)
 
 
 def cmd_explain(args: argparse.Namespace) -> int:
@@ -244,6 +245,17 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 
 # ---------------------------------------------------------------------------------------- parser
+def _whole(text: str) -> int:
+    """argparse type: a whole number of at least 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1, got {value}")
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="casefile",
@@ -308,6 +320,10 @@ def build_parser() -> argparse.ArgumentParser:
                     help="keep the Study/Series/SOP Instance UIDs (default) or drop them")
     sp.add_argument("--site-key", metavar="FILE", help="site key for pseudonyms (default $CASEFILE_SITE_KEY "
                     "or ~/.config/casefile/site.key, created on first use)")
+    sp.add_argument("--max-pixels", type=_whole, metavar="N", help="refuse inputs whose header declares more "
+                    "than N pixels per frame (default: site settings, else 100000000)")
+    sp.add_argument("--max-file-pixels", type=_whole, metavar="N", help="refuse inputs whose header declares "
+                    "more than N values (pixels x samples x frames) per file (default: site settings, else 400000000)")
     sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
     sp.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     sp.add_argument("inputs", nargs="+", metavar="INPUT", help="image files or folders (searched recursively)")
