@@ -24,6 +24,7 @@ from casefile.imaging.limits import NON_PIXEL_BYTES
 
 # Attributes whose presence marks a no-meta file that pydicom parsed with force as a real data set.
 _DICOM_MARKERS = ("SOPClassUID", "SOPInstanceUID", "Modality", "Rows", "StudyInstanceUID", "PixelData")
+_SIZE_KEYWORDS = ("Rows", "Columns", "BitsAllocated")
 _HEAD_STEPS = (64 * 1024, 1024 * 1024, 16 * 1024 * 1024)  # inflated bytes tried for the image attributes
 
 HeaderCheck = Callable[[Dataset], int]  # checks a header's declared size; returns the pixel bytes it needs
@@ -65,10 +66,10 @@ def _read_deflated(meta: FileMetaDataset, stream: bytes, name: str, check: Heade
                                   stop_when=lambda tag, _vr, _length: tag.group > 0x0028)
         except Exception:
             header = Dataset()
-        if ("Rows" in header and "Columns" in header) or whole:
+        if all(k in header for k in _SIZE_KEYWORDS) or whole:
             break
-    if "Rows" not in header or "Columns" not in header:
-        raise InputError(f"{name}: deflated data set: no Rows and Columns within its first "
+    if not all(k in header for k in _SIZE_KEYWORDS):
+        raise InputError(f"{name}: deflated data set: no Rows, Columns and Bits Allocated within its first "
                          f"{_HEAD_STEPS[-1] // (1024 * 1024)} MiB")
     header.file_meta = meta
     bound = check(header) + NON_PIXEL_BYTES
