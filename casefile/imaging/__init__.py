@@ -20,7 +20,7 @@ from casefile.imaging.limits import (
     Limits,
     check_file_bytes,
     check_png_header,
-    hold_pillow_to,
+    pillow_held_to,
     pillow_refusal,
     resolve_limits,
 )
@@ -69,7 +69,6 @@ def _read_bytes(path: Path, name: str, limits: Limits) -> bytes:
 
 def _open_raster(data: bytes, name: str, limits: Limits) -> Image.Image | None:
     """The file opened by Pillow (header only, nothing decoded), or None when Pillow does not know it."""
-    hold_pillow_to(limits)
     check_png_header(data, name, limits)
     try:
         return Image.open(io.BytesIO(data))
@@ -114,7 +113,7 @@ def load(
     level = pydicom_logger.level
     pydicom_logger.setLevel(logging.CRITICAL)
     try:
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), pillow_held_to(limits):
             warnings.simplefilter("ignore")
             if not data:
                 raise InputError(f"{name}: file is empty")

@@ -14,14 +14,16 @@ declares. So every input is held to three limits before it is decoded:
 
 The limits come from the site settings (casefile.site: ``max_pixels``, ``max_file_pixels``;
 ``$CASEFILE_MAX_PIXELS``, ``$CASEFILE_MAX_FILE_PIXELS``; defaults 100 and 400 megapixels), or are given
-by the caller. Pillow's own guard (``PIL.Image.MAX_IMAGE_PIXELS``) is set to the same per-frame limit,
-so a decoder that Pillow runs is held to it too.
+by the caller. While a file is loaded, Pillow's own guard (``PIL.Image.MAX_IMAGE_PIXELS``) is set to the
+same per-frame limit, so a decoder that Pillow runs is held to it too.
 """
 
 from __future__ import annotations
 
 import re
 import struct
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 
 from PIL import Image
@@ -114,9 +116,16 @@ def check_png_header(data: bytes, name: str, limits: Limits) -> None:
         check_frame(name, size[0], size[1], limits)
 
 
-def hold_pillow_to(limits: Limits) -> None:
-    """Pillow warns above MAX_IMAGE_PIXELS and refuses above twice it; match it to the per-frame limit."""
+@contextmanager
+def pillow_held_to(limits: Limits) -> Iterator[None]:
+    """Pillow warns above MAX_IMAGE_PIXELS and refuses above twice it: match it to the per-frame limit while
+    a file is opened and decoded, then put back what was there (other rooms use Pillow too)."""
+    previous = Image.MAX_IMAGE_PIXELS
     Image.MAX_IMAGE_PIXELS = limits.max_pixels
+    try:
+        yield
+    finally:
+        Image.MAX_IMAGE_PIXELS = previous
 
 
 def pillow_refusal(name: str, exc: Exception, limits: Limits) -> InputError:

@@ -177,7 +177,6 @@ def test_limits_are_settable_from_each_source(tmp_path, site_key, monkeypatch):
     (site / "site.json").write_text(json.dumps({"max_pixels": 9_999}))
     with pytest.raises(InputError, match="above the limit of 9999 pixels"):
         load(picture, key=site_key)
-    assert Image.MAX_IMAGE_PIXELS == 9_999  # Pillow's own guard follows the same limit
 
 
 def test_file_limit_counts_every_frame_and_sample(tmp_path, site_key):
@@ -188,16 +187,27 @@ def test_file_limit_counts_every_frame_and_sample(tmp_path, site_key):
         load(path, key=site_key, frame=1, max_pixels=2_500, max_file_pixels=9_999)
 
 
-def test_pillow_refusal_at_open_gets_our_message(tmp_path, site_key):
+def _gif(path: Path, side: int) -> Path:
     buf = io.BytesIO()
     Image.new("L", (8, 8)).save(buf, "GIF")
     data = bytearray(buf.getvalue())
-    data[6:10] = (20000).to_bytes(2, "little") * 2  # GIF89a logical screen width and height
-    path = tmp_path / "wide.gif"
+    data[6:10] = side.to_bytes(2, "little") * 2  # GIF89a logical screen width and height (bytes 6..9)
     path.write_bytes(bytes(data))
+    return path
+
+
+def test_pillow_refusal_at_open_gets_our_message(tmp_path, site_key):
+    wide = _gif(tmp_path / "wide.gif", 20000)
     with pytest.raises(InputError, match=r"^wide\.gif: image declares 400\.0 megapixels, above the limit of "
                                          r"100\.0 megapixels per frame"):
-        load(path, key=site_key)
+        load(wide, key=site_key)
+    # Pillow's guard follows our limit: it refuses at open above twice max_pixels (Pillow documentation,
+    # Image.open: DecompressionBombError), which its default (about 89.5 MP) would not do for 300 x 300
+    before = Image.MAX_IMAGE_PIXELS
+    small = _gif(tmp_path / "small.gif", 300)
+    with pytest.raises(InputError, match=r"^small\.gif: image declares 90000 pixels, above the limit of 40000"):
+        load(small, key=site_key, max_pixels=40_000)
+    assert Image.MAX_IMAGE_PIXELS == before  # and is put back for the rest of the program
 
 
 def test_file_too_large_for_any_image_is_not_read(tmp_path, site_key):
