@@ -23,14 +23,14 @@ from casefile.ledger import Ledger  # noqa: E402
 from casefile.models import load_model  # noqa: E402
 from casefile.pipeline import RunSettings, explain_one, write_sheet  # noqa: E402
 from demo_cases.scenario import make_case  # noqa: E402
-from demo_cases.train import train  # noqa: E402
+from demo_cases.train import ENTRY_POINT, train  # noqa: E402
 from demo_cases.writers import write_png  # noqa: E402
 
 
 def main(n_cases: int = 2000) -> None:
     tmp = Path(tempfile.mkdtemp())
     paths = train(7, shortcut=False, out_dir=tmp / "models")
-    loaded = load_model(paths["weights"], paths["card"])
+    loaded = load_model(paths["weights"], paths["card"], trusted_entry_points=[ENTRY_POINT])
     rng = np.random.default_rng(1)
     inputs = tmp / "inputs"
     inputs.mkdir()

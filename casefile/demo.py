@@ -61,6 +61,7 @@ def run_demo(out_dir: str | os.PathLike[str], *, seed: int = 7, n_cases: int = 4
     from casefile.pipeline import RunSettings, explain_batch
     from casefile.review import describe_draw, draw, format_text, summarise
     from demo_cases.build import build_scenario
+    from demo_cases.train import ENTRY_POINT
 
     t0 = time.perf_counter()
     out = Path(out_dir)
@@ -75,7 +76,8 @@ def run_demo(out_dir: str | os.PathLike[str], *, seed: int = 7, n_cases: int = 4
     results: dict[str, Any] = {}
     for step, name in ((2, "honest"), (3, "shortcut")):
         paths = scen[name]
-        loaded = load_model(paths["weights"], paths["card"])
+        # the demo vouches for its own factory, by exact name, and for nothing else
+        loaded = load_model(paths["weights"], paths["card"], trusted_entry_points=[ENTRY_POINT])
         _say(f"{step}/6 explaining {n_cases} cases with the {loaded.card['name']} model …")
         summary = explain_batch(ledger, [scen["dir"] / "inputs"], loaded, run, key=site_key,
                                 sheet_dir=out / "sheets" / name, progress=sys.stderr.isatty())

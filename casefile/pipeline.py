@@ -6,7 +6,7 @@ import hashlib
 import os
 import sys
 from collections.abc import Callable, Iterator, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -23,6 +23,9 @@ class RunSettings:
 
     ``patch``/``stride`` of None take about a seventh of the smaller model-input side (32 and 16 on a
     224-pixel input, the explain room's defaults) so small models get a useful occlusion grid too.
+    ``max_pixels``/``max_file_pixels`` of None take the site settings' input size limits
+    (casefile.imaging.limits). They decide only whether an input is read at all, so they are not part
+    of the stored settings: a case recorded under one limit is the same case under another.
     """
 
     methods: tuple[str, ...] = DEFAULT_METHODS
@@ -33,6 +36,16 @@ class RunSettings:
     explain: dict[str, Any] = field(default_factory=dict)
     frame: int | None = None
     uid_policy: str = "keep-uids"
+    max_pixels: int | None = None
+    max_file_pixels: int | None = None
+
+    def with_limits(self) -> RunSettings:
+        """These settings with the input size limits filled in from the site settings (read once, here,
+        so that a malformed site file is refused before anything is recorded)."""
+        from casefile.imaging import resolve_limits
+
+        limits = resolve_limits(self.max_pixels, self.max_file_pixels)
+        return replace(self, max_pixels=limits.max_pixels, max_file_pixels=limits.max_file_pixels)
 
     def resolve(self, loaded: Any) -> dict[str, Any]:
         """The full, stored settings for this model: every default filled in."""
@@ -171,10 +184,11 @@ def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: 
     """
     from casefile.imaging import load
 
-    run = run or RunSettings()
+    run = (run or RunSettings()).with_limits()
     settings = settings if settings is not None else run.resolve(loaded)
     try:
-        scan = load(path, frame=run.frame, key=key, window=loaded.card["windowing"], uid_policy=run.uid_policy)
+        scan = load(path, frame=run.frame, key=key, window=loaded.card["windowing"], uid_policy=run.uid_policy,
+                    max_pixels=run.max_pixels, max_file_pixels=run.max_file_pixels)
     except CasefileError as exc:
         return record_failure(ledger, path, str(exc), stage="load", loaded=loaded,
                               settings_hash=settings_digest(settings))
@@ -256,7 +270,7 @@ def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], load
     """Every input in order; bad inputs are recorded as failed attempts and the batch goes on."""
     from tqdm import tqdm
 
-    run = run or RunSettings()
+    run = (run or RunSettings()).with_limits()
     settings = preflight(loaded, run)
     files = list(iter_inputs(inputs))
     summary = BatchSummary()

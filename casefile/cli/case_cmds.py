@@ -36,7 +36,8 @@ def _run_settings(args: argparse.Namespace) -> RunSettings:
     from casefile.pipeline import RunSettings
 
     return RunSettings(methods=args.methods, layer=args.layer, patch=args.patch, stride=args.stride,
-                       fill=args.fill, frame=args.frame, uid_policy=args.uid_policy)
+                       fill=args.fill, frame=args.frame, uid_policy=args.uid_policy, max_pixels=args.max_pixels,
+                       max_file_pixels=args.max_file_pixels)
 
 
 def cmd_explain(args: argparse.Namespace) -> int:
@@ -133,6 +134,11 @@ def register(sub: argparse._SubParsersAction) -> None:
                     help="keep the Study/Series/SOP Instance UIDs (default) or drop them")
     sp.add_argument("--site-key", metavar="FILE", help="site key for pseudonyms (default $CASEFILE_SITE_KEY "
                     "or ~/.config/casefile/site.key, created on first use)")
+    sp.add_argument("--max-pixels", type=positive_int, metavar="N", help="refuse inputs whose header declares "
+                    "more than N pixels per frame (default: site settings, else 100000000)")
+    sp.add_argument("--max-file-pixels", type=positive_int, metavar="N", help="refuse inputs whose header "
+                    "declares more than N values (pixels x samples x frames) per file (default: site settings, "
+                    "else 400000000)")
     sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
     sp.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     sp.add_argument("inputs", nargs="+", metavar="INPUT", help="image files or folders (searched recursively)")

@@ -10,12 +10,20 @@ import warnings
 from pathlib import Path
 from typing import Any
 
-import pydicom
 from PIL import Image
 
 from casefile.errors import CasefileError, InputError
-from casefile.imaging.dicom import load_dicom
+from casefile.imaging.dicom import check_declared_size, load_dicom
+from casefile.imaging.dicom_parse import is_part10, parse_dicom
 from casefile.imaging.identity import ANNEX_E_IDENTIFIERS, SAFE_ATTRIBUTES, load_site_key, pseudonym
+from casefile.imaging.limits import (
+    Limits,
+    check_file_bytes,
+    check_png_header,
+    pillow_held_to,
+    pillow_refusal,
+    resolve_limits,
+)
 from casefile.imaging.raster import load_raster
 from casefile.imaging.scan import Scan, pixel_digest
 from casefile.imaging.voi import (
@@ -29,19 +37,23 @@ from casefile.imaging.voi import (
 )
 
 __all__ = [
-    "ANNEX_E_IDENTIFIERS", "SAFE_ATTRIBUTES", "Scan", "apply_window", "load", "load_site_key", "lut_lookup",
+    "ANNEX_E_IDENTIFIERS", "SAFE_ATTRIBUTES", "Limits", "Scan", "apply_window", "load", "load_site_key",
+    "lut_lookup", "resolve_limits",
     "minmax_window", "pixel_digest", "pseudonym", "rescale", "window_linear", "window_linear_exact",
     "window_sigmoid",
 ]
 
 UID_POLICIES = ("keep-uids", "drop-uids")
-# Attributes whose presence marks a no-meta file that pydicom parsed with force as a real data set.
-_DICOM_MARKERS = ("SOPClassUID", "SOPInstanceUID", "Modality", "Rows", "StudyInstanceUID", "PixelData")
 
 
-def _read_bytes(path: Path, name: str) -> bytes:
+def _read_bytes(path: Path, name: str, limits: Limits) -> bytes:
+    """The whole file, refused before reading when it is larger than any image within the limits."""
     try:
-        return path.read_bytes()
+        with path.open("rb") as f:
+            size = os.fstat(f.fileno()).st_size
+            check_file_bytes(name, size, limits)
+            data = f.read(size)
+            grew = f.read(1)
     except FileNotFoundError:
         raise InputError(f"{name}: file not found") from None
     except IsADirectoryError:
@@ -50,32 +62,20 @@ def _read_bytes(path: Path, name: str) -> bytes:
         raise InputError(f"{name}: permission denied") from None
     except OSError as exc:
         raise InputError(f"{name}: cannot be read ({exc.strerror or exc})") from None
+    if grew or len(data) != size:
+        raise InputError(f"{name}: file changed size while it was being read")
+    return data
 
 
-def _parse_dicom(data: bytes, name: str) -> pydicom.Dataset | None:
-    """A data set if the bytes are DICOM (Part 10 preamble, or a bare data set pydicom can parse)."""
-    part10 = len(data) >= 132 and data[128:132] == b"DICM"
+def _open_raster(data: bytes, name: str, limits: Limits) -> Image.Image | None:
+    """The file opened by Pillow (header only, nothing decoded), or None when Pillow does not know it."""
+    check_png_header(data, name, limits)
     try:
-        ds = pydicom.dcmread(io.BytesIO(data), force=True)
-    except Exception:
-        if part10:
-            raise InputError(f"{name}: DICOM file is damaged and cannot be parsed") from None
-        return None
-    if part10:
-        return ds
-    try:
-        recognised = sum(1 for k in _DICOM_MARKERS if k in ds)
+        return Image.open(io.BytesIO(data))
+    except Image.DecompressionBombError as exc:
+        raise pillow_refusal(name, exc, limits) from None
     except Exception:
         return None
-    return ds if recognised >= 2 else None
-
-
-def _is_raster(data: bytes) -> bool:
-    try:
-        with Image.open(io.BytesIO(data)):
-            return True
-    except Exception:
-        return False
 
 
 def load(
@@ -85,6 +85,8 @@ def load(
     key: str | os.PathLike[str] | None = None,
     window: dict[str, Any] | str | None = None,
     uid_policy: str = "keep-uids",
+    max_pixels: int | None = None,
+    max_file_pixels: int | None = None,
 ) -> Scan:
     """Load one DICOM or raster file as a Scan.
 
@@ -92,7 +94,10 @@ def load(
     file used for the pseudonym (default ``$CASEFILE_SITE_KEY`` or ``~/.config/casefile/site.key``).
     ``window``: ``"file"`` (default: the file's VOI LUT or window, else the data range), ``"minmax"``,
     or ``{"center": c, "width": w, "function": "LINEAR" | "LINEAR_EXACT" | "SIGMOID"}``.
-    ``uid_policy``: ``"keep-uids"`` or ``"drop-uids"``. Any problem raises InputError with one line.
+    ``uid_policy``: ``"keep-uids"`` or ``"drop-uids"``. ``max_pixels`` (per frame) and
+    ``max_file_pixels`` (per file, samples of all frames): the size limits, checked from the header
+    before any pixel is decoded (default: the site settings; see casefile.imaging.limits). Any problem
+    raises InputError with one line.
     """
     p = Path(path)
     name = p.name or str(path)
@@ -100,28 +105,31 @@ def load(
         raise InputError(f"{name}: uid_policy must be one of {', '.join(UID_POLICIES)}")
     if frame is not None and (isinstance(frame, bool) or not isinstance(frame, int)):
         raise InputError(f"{name}: frame must be a whole number")
-    data = _read_bytes(p, name)
+    limits = resolve_limits(max_pixels, max_file_pixels)
+    data = _read_bytes(p, name, limits)
     file_sha256 = hashlib.sha256(data).hexdigest()
     notes: list[str] = []
     pydicom_logger = logging.getLogger("pydicom")
     level = pydicom_logger.level
     pydicom_logger.setLevel(logging.CRITICAL)
     try:
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), pillow_held_to(limits):
             warnings.simplefilter("ignore")
             if not data:
                 raise InputError(f"{name}: file is empty")
-            part10 = len(data) >= 132 and data[128:132] == b"DICM"
-            ds = _parse_dicom(data, name) if part10 or not _is_raster(data) else None
-            if ds is not None:
-                return load_dicom(ds, name=name, file_sha256=file_sha256, frame=frame, key=key,
-                                  window=window, uid_policy=uid_policy, notes=notes)
-            if not _is_raster(data):
+            img = None if is_part10(data) else _open_raster(data, name, limits)
+            if img is not None:
+                return load_raster(img, name=name, file_sha256=file_sha256, frame=frame, notes=notes,
+                                   limits=limits)
+            ds = parse_dicom(data, name, lambda header: check_declared_size(header, name, limits))
+            if ds is None:
                 raise InputError(f"{name}: not a DICOM or raster image file")
-            return load_raster(data, name=name, file_sha256=file_sha256, frame=frame, notes=notes)
+            return load_dicom(ds, name=name, file_sha256=file_sha256, frame=frame, key=key,
+                              window=window, uid_policy=uid_policy, notes=notes, limits=limits)
     except CasefileError:
         raise
     except Exception as exc:  # last guard: a damaged file must never surface as a traceback
-        raise InputError(f"{name}: cannot be read ({type(exc).__name__})") from None
+        text = (str(exc).strip().splitlines() or [""])[0][:120]
+        raise InputError(f"{name}: cannot be read ({type(exc).__name__}{': ' + text if text else ''})") from None
     finally:
         pydicom_logger.setLevel(level)

@@ -8,17 +8,31 @@ from typing import Any
 import numpy as np
 import pydicom.uid as uids
 from pydicom.dataset import Dataset, FileMetaDataset
+from pydicom.encaps import get_frame
 from pydicom.multival import MultiValue
 from pydicom.pixels import apply_color_lut, convert_color_space, get_decoder
 
 from casefile.errors import InputError
 from casefile.imaging import voi
 from casefile.imaging.attributes import as_float, as_int, first, lookup, safe_metadata
+from casefile.imaging.codestream import j2k_size, jpeg_size
 from casefile.imaging.identity import load_site_key, pseudonym
+from casefile.imaging.limits import Limits, check_file, check_frame
 from casefile.imaging.scan import Scan, pixel_digest
 
 PIXEL_KEYWORDS = ("PixelData", "FloatPixelData", "DoubleFloatPixelData")
 GREY = ("MONOCHROME1", "MONOCHROME2")
+# What casefile decodes, by transfer syntax (PS3.5 Annex A): native and deflated pixel data, RLE
+# (PS3.5 Annex G; the decoder sizes its output from Rows x Columns), and the JPEG family, whose frames
+# are checked for the size they declare inside themselves (casefile.imaging.codestream).
+_CODESTREAM_READERS = {
+    **{ts: jpeg_size for ts in (*uids.JPEGTransferSyntaxes, *uids.JPEGLSTransferSyntaxes)},
+    **{ts: j2k_size for ts in uids.JPEG2000TransferSyntaxes},
+}
+DECODED_SYNTAXES = frozenset([*uids.UncompressedTransferSyntaxes, *uids.RLETransferSyntaxes, *_CODESTREAM_READERS])
+# PS3.3 C.7.6.3.1.1: 1 for MONOCHROME1/2 and PALETTE COLOR, 3 for RGB and YBR; PS3.5 8.1.1: Bits Allocated
+# is 1 or a multiple of 8 (at most 64, Double Float Pixel Data).
+SAMPLES_PER_PIXEL = (1, 3)
 
 
 def _one_line(exc: BaseException) -> str:
@@ -44,15 +58,59 @@ def _transfer_syntax(ds: Dataset, name: str, notes: list[str]) -> str:
     return str(tsuid)
 
 
-def _check_native_length(ds: Dataset, name: str, tsuid: str, frames: int) -> None:
-    if uids.UID(tsuid).is_compressed or "PixelData" not in ds:
-        return
+def check_transfer_syntax(tsuid: str, name: str) -> None:
+    """Refuse, before decoding, a transfer syntax that is unknown or that casefile does not decode."""
+    uid = uids.UID(tsuid)
+    if not uid.is_transfer_syntax:
+        raise InputError(f"{name}: unknown or unsupported transfer syntax UID {tsuid}")
+    if uid not in DECODED_SYNTAXES:
+        raise InputError(f"{name}: unsupported transfer syntax {tsuid} ({uid.name}); casefile decodes native, "
+                         "deflated, RLE, JPEG, JPEG-LS and JPEG 2000 pixel data")
+
+
+def check_declared_size(ds: Dataset, name: str, limits: Limits) -> int:
+    """Check Rows x Columns x Samples per Pixel x Number of Frames (PS3.3 C.7.6.3, C.7.6.6) against the
+    limits before any pixel is decoded; return the bytes the native pixel data of all frames takes."""
     rows, cols = as_int(ds, "Rows", name), as_int(ds, "Columns", name)
     spp = as_int(ds, "SamplesPerPixel", name, default=1)
+    frames = as_int(ds, "NumberOfFrames", name, default=1)
     bits = as_int(ds, "BitsAllocated", name)
-    if rows <= 0 or cols <= 0 or bits <= 0:
-        raise InputError(f"{name}: Rows, Columns and Bits Allocated must be above 0")
-    expected = (rows * cols * spp * frames * bits + 7) // 8
+    if frames < 1:
+        raise InputError(f"{name}: invalid Number of Frames value {frames}")
+    if spp not in SAMPLES_PER_PIXEL:
+        raise InputError(f"{name}: Samples per Pixel is {spp}; casefile reads 1 (grey, palette) or 3 (colour)")
+    if bits < 1 or bits > 64 or (bits != 1 and bits % 8):
+        raise InputError(f"{name}: Bits Allocated is {bits}; DICOM allows 1 or a multiple of 8 up to 64")
+    check_frame(name, cols, rows, limits)
+    check_file(name, cols, rows, spp, frames, limits)
+    return (rows * cols * spp * frames * bits + 7) // 8
+
+
+def _check_codestream(ds: Dataset, name: str, tsuid: str, frames: int, index: int) -> None:
+    """A JPEG-family frame must declare the data set's own Columns x Rows and Samples per Pixel."""
+    reader = _CODESTREAM_READERS.get(uids.UID(tsuid))
+    if reader is None or "PixelData" not in ds:
+        return
+    try:
+        data = get_frame(ds.PixelData, index, number_of_frames=frames)
+    except Exception as exc:
+        raise InputError(f"{name}: encapsulated Pixel Data cannot be split into frames ({_one_line(exc)})") from None
+    declared = reader(data)
+    rows, cols = as_int(ds, "Rows", name), as_int(ds, "Columns", name)
+    spp = as_int(ds, "SamplesPerPixel", name, default=1)
+    if declared is None:
+        raise InputError(f"{name}: frame {index}: no image header found in its {uids.UID(tsuid).name} data")
+    if declared != (cols, rows, spp):
+        w, h, c = declared
+        raise InputError(f"{name}: frame {index}: its {uids.UID(tsuid).name} data declares {w} x {h} with {c} "
+                         f"component(s), but the data set declares {cols} x {rows} with {spp} (Columns x Rows, "
+                         "Samples per Pixel); not decoded")
+
+
+def _check_native_length(ds: Dataset, name: str, tsuid: str, frames: int, expected: int) -> None:
+    if uids.UID(tsuid).is_compressed or "PixelData" not in ds:
+        return
+    spp = as_int(ds, "SamplesPerPixel", name, default=1)
     if spp == 3 and str(ds.get("PhotometricInterpretation", "")).strip() == "YBR_FULL_422":
         expected = expected * 2 // 3
     got = len(ds.PixelData)
@@ -218,21 +276,26 @@ def _pseudonym(ds: Dataset, key: str | os.PathLike[str] | None, notes: list[str]
 
 
 def load_dicom(ds: Dataset, *, name: str, file_sha256: str, frame: int | None, key: Any, window: Any,
-               uid_policy: str, notes: list[str]) -> Scan:
-    """Build a Scan from a parsed data set (see casefile.imaging.load for the arguments)."""
+               uid_policy: str, notes: list[str], limits: Limits) -> Scan:
+    """Build a Scan from a parsed data set (see casefile.imaging.load for the arguments).
+
+    Nothing is decoded before the transfer syntax, the declared size (against ``limits``) and, for the
+    JPEG family, the size the frame's own codestream declares have been checked.
+    """
     if not any(k in ds for k in PIXEL_KEYWORDS):
         raise InputError(f"{name}: DICOM file has no Pixel Data")
     tsuid = _transfer_syntax(ds, name, notes)
+    check_transfer_syntax(tsuid, name)
+    expected = check_declared_size(ds, name, limits)
     frames = as_int(ds, "NumberOfFrames", name, default=1)
-    if frames < 1:
-        raise InputError(f"{name}: invalid Number of Frames value {frames}")
     if frames > 1 and frame is None:
         raise InputError(f"{name}: multi-frame file with {frames} frames; choose one with frame=N (0-based)")
     if frame is not None and not 0 <= frame < frames:
         raise InputError(f"{name}: frame {frame} out of range; the file has {frames} frame(s)")
-    _check_native_length(ds, name, tsuid, frames)
-    arr, photometric = _decode(ds, name, tsuid, frame if frames > 1 else None)
     index = frame or 0
+    _check_native_length(ds, name, tsuid, frames, expected)
+    _check_codestream(ds, name, tsuid, frames, index)
+    arr, photometric = _decode(ds, name, tsuid, frame if frames > 1 else None)
     info = None
     if arr.ndim == 2 and photometric == "PALETTE COLOR":
         unit, digest = _colour(ds, arr, photometric, name, notes)

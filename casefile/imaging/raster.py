@@ -2,34 +2,29 @@
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 from PIL import Image, ImageOps
 
 from casefile.errors import InputError
+from casefile.imaging.limits import Limits, check_file, check_frame
 from casefile.imaging.scan import Scan, pixel_digest
 
 SIXTEEN_BIT_MODES = ("I;16", "I;16L", "I;16B", "I;16N")
 NOTE_CONVERTED = "{mode} image converted to RGB"
 
 
-def _open(data: bytes, name: str) -> Image.Image:
-    try:
-        img = Image.open(io.BytesIO(data))
-    except Exception:
-        raise InputError(f"{name}: not a DICOM or raster image file") from None
-    return img
-
-
-def _select_frame(img: Image.Image, frame: int | None, name: str) -> None:
-    count = int(getattr(img, "n_frames", 1) or 1)
+def _select_frame(img: Image.Image, frame: int | None, name: str, limits: Limits) -> None:
+    """Check the declared size (first frame, then all frames, then the chosen one) and seek to the frame."""
+    check_frame(name, img.size[0], img.size[1], limits)
+    count = int(getattr(img, "n_frames", 1) or 1)  # read from headers (Pillow does not decode to count)
+    check_file(name, img.size[0], img.size[1], len(img.getbands()), count, limits)
     if count > 1 and frame is None:
         raise InputError(f"{name}: multi-frame file with {count} frames; choose one with frame=N (0-based)")
     if frame is not None and not 0 <= frame < count:
         raise InputError(f"{name}: frame {frame} out of range; the file has {count} frame(s)")
     if frame:
         img.seek(frame)
+        check_frame(name, img.size[0], img.size[1], limits)  # frames of one file may differ in size
 
 
 def _to_array(img: Image.Image, name: str, notes: list[str]) -> tuple[np.ndarray, float]:
@@ -64,12 +59,14 @@ def _to_array(img: Image.Image, name: str, notes: list[str]) -> tuple[np.ndarray
     raise InputError(f"{name}: unsupported image mode {mode!r}")
 
 
-def load_raster(data: bytes, *, name: str, file_sha256: str, frame: int | None, notes: list[str]) -> Scan:
-    """Build a Scan from raster file bytes; EXIF orientation is applied (PIL.ImageOps.exif_transpose)."""
-    img = _open(data, name)
+def load_raster(img: Image.Image, *, name: str, file_sha256: str, frame: int | None, notes: list[str],
+                limits: Limits) -> Scan:
+    """Build a Scan from a raster file Pillow has opened (header read, nothing decoded yet); the size the
+    header declares is checked against ``limits`` before decoding. EXIF orientation is applied
+    (PIL.ImageOps.exif_transpose)."""
     fmt = img.format or "raster"
     try:
-        _select_frame(img, frame, name)
+        _select_frame(img, frame, name, limits)
         img.load()
         oriented = ImageOps.exif_transpose(img)
         if oriented is not img:

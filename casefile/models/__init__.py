@@ -6,8 +6,10 @@
   * a ".pt2" file: a torch.export archive (unflattened so submodule names and hooks work);
   * a TorchScript file (torch.jit.save): loaded with torch.jit.load;
   * any other file: a state dict for the card's `entry_point` ("package.module:factory").
-The factory is called with the card's `entry_point_args` (default: no arguments). Loading an entry
-point or TorchScript runs code: load only models from sources you trust.
+An entry point is imported only when the site (or the calling program) trusts it, and its factory is
+called with the card's `entry_point_args` as keyword arguments (casefile.models.trust). A ".pt2"
+archive is checked before and after torch reads it so that no code from it runs (casefile.models.archive).
+A TorchScript file is a program: load it only from a source you trust.
 """
 
 from casefile.models.card import card_digest, check_card, read_card

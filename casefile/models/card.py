@@ -18,6 +18,8 @@ from casefile.schemas import SCHEMA_DIR
 SCHEMA_PATH = SCHEMA_DIR / "model_card.schema.json"
 
 DEFAULT_RESIZE = "bilinear"
+# A card is a short JSON object (the README's example is under 1 KiB); anything far larger is not one.
+MAX_CARD_BYTES = 256 * 1024
 
 
 @lru_cache(maxsize=1)
@@ -103,11 +105,21 @@ def read_card(card_path: str | Path) -> dict[str, Any]:
     if not path.is_file():
         raise ModelError(f"{path.name}: model card not found at {path}")
     try:
-        card = json.loads(path.read_text(encoding="utf-8"))
+        with path.open("rb") as f:
+            raw = f.read(MAX_CARD_BYTES + 1)
+    except OSError as exc:
+        raise ModelError(f"{path.name}: model card cannot be read ({exc.strerror or exc})") from None
+    if len(raw) > MAX_CARD_BYTES:
+        raise ModelError(f"{path.name}: model card is larger than {MAX_CARD_BYTES // 1024} KiB; a card is a short "
+                         "JSON object")
+    try:
+        card = json.loads(raw.decode("utf-8"))
     except UnicodeDecodeError:
         raise ModelError(f"{path.name}: model card is not UTF-8 text") from None
     except json.JSONDecodeError as exc:
         raise ModelError(f"{path.name}: model card is not valid JSON (line {exc.lineno}: {exc.msg})") from None
+    except RecursionError:
+        raise ModelError(f"{path.name}: model card nests too deeply to be a card") from None
     return check_card(card, path.name)
 
 

@@ -13,10 +13,9 @@ Everything is loaded with map_location="cpu"; state dicts with weights_only=True
 from __future__ import annotations
 
 import hashlib
-import importlib
-import re
 import warnings
 import zipfile
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -26,10 +25,10 @@ import torch
 from torch import nn
 
 from casefile.errors import ModelError
+from casefile.models.archive import check_export_archive, check_export_graph
 from casefile.models.card import card_digest, read_card
 from casefile.models.preprocess import preprocess_pixels, roi_mask, rules_record
-
-ENTRY_POINT = re.compile(r"^[A-Za-z_]\w*(\.[A-Za-z_]\w*)*:[A-Za-z_]\w*$")
+from casefile.models.trust import ENTRY_POINT, build_module, trusted_names
 
 
 @dataclass(frozen=True)
@@ -92,29 +91,11 @@ def _is_torchscript(path: Path) -> bool:
     )
 
 
-def _factory(entry_point: str, where: str) -> Any:
-    module_name, _, attr = entry_point.partition(":")
-    try:
-        mod = importlib.import_module(module_name)
-    except Exception as exc:  # an entry point is user code: any failure is reported in one line
-        raise ModelError(f"{where}: cannot import {module_name!r} for entry point {entry_point}: {exc}") from None
-    fn = getattr(mod, attr, None)
-    if not callable(fn):
-        raise ModelError(f"{where}: entry point {entry_point}: {module_name} has no callable {attr!r}")
-    return fn
-
-
-def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], card_name: str) -> nn.Module:
+def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], card_name: str,
+                      trusted: tuple[str, ...]) -> nn.Module:
+    module = build_module(entry_point, card.get("entry_point_args", {}), trusted, card_name)
     if not weights.is_file():
         raise ModelError(f"{weights.name}: state-dict file not found at {weights} (named by {card_name})")
-    try:
-        module = _factory(entry_point, card_name)(**card.get("entry_point_args", {}))
-    except ModelError:
-        raise
-    except Exception as exc:
-        raise ModelError(f"{card_name}: entry point {entry_point} failed to build the model: {exc}") from None
-    if not isinstance(module, nn.Module):
-        raise ModelError(f"{card_name}: entry point {entry_point} returned {type(module).__name__}, not a module")
     try:
         state = torch.load(weights, map_location="cpu", weights_only=True)
     except Exception as exc:
@@ -133,7 +114,8 @@ def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], car
     return module
 
 
-def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path) -> tuple[nn.Module, str, dict]:
+def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path,
+                 trusted: str | Iterable[str] | None) -> tuple[nn.Module, str, dict]:
     text = str(model_path)
     card_name = card_file.name
     path = Path(model_path)
@@ -141,20 +123,25 @@ def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path) 
         if "weights" not in card:
             raise ModelError(f"{card_name}: entry point {text} needs a 'weights' state-dict file in the card")
         weights = card_file.parent / card["weights"]
-        module = _from_entry_point(text, weights, card, card_name)
+        module = _from_entry_point(text, weights, card, card_name, trusted_names(trusted))
         return module, sha256_file(weights), {"format": "entry-point", "entry_point": text,
                                               "file_name": weights.name}
     if not path.is_file():
         raise ModelError(f"{path.name}: model file not found at {path}")
     digest = sha256_file(path)
     if path.suffix == ".pt2":
+        check_export_archive(path)
         try:
             program = torch.export.load(str(path))
+        except Exception as exc:
+            raise ModelError(f"{path.name}: not a readable torch.export archive ({type(exc).__name__})") from None
+        check_export_graph(program, path.name)
+        try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 module = torch.export.unflatten(program)
         except Exception as exc:
-            raise ModelError(f"{path.name}: not a readable torch.export archive ({type(exc).__name__})") from None
+            raise ModelError(f"{path.name}: torch.export archive cannot be unflattened ({type(exc).__name__})") from None
         return module, digest, {"format": "torch.export", "file_name": path.name}
     if _is_torchscript(path):
         try:
@@ -168,7 +155,7 @@ def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path) 
         raise ModelError(
             f"{path.name}: not TorchScript or a .pt2 archive; a state dict needs 'entry_point' in {card_name}"
         )
-    module = _from_entry_point(card["entry_point"], path, card, card_name)
+    module = _from_entry_point(card["entry_point"], path, card, card_name, trusted_names(trusted))
     return module, digest, {"format": "entry-point", "entry_point": card["entry_point"], "file_name": path.name}
 
 
@@ -218,11 +205,18 @@ def check_against_card(module: nn.Module, card: dict[str, Any], card_name: str) 
     return tuple(notes)
 
 
-def load_model(model_path: str | Path, card_path: str | Path) -> LoadedModel:
-    """Load a model and its card, check they agree, and return a LoadedModel (module in eval mode)."""
+def load_model(model_path: str | Path, card_path: str | Path, *,
+               trusted_entry_points: str | Iterable[str] | None = None) -> LoadedModel:
+    """Load a model and its card, check they agree, and return a LoadedModel (module in eval mode).
+
+    An entry point (the card's ``entry_point`` with a state-dict file, or ``model_path`` given as
+    ``"package.module:factory"``) is imported only when trusted: by the site settings, or by
+    ``trusted_entry_points`` from the calling program (names as in the site settings: a package, a
+    module, or ``"module:factory"``; added to the site's). See casefile.models.trust.
+    """
     card_file = Path(card_path)
     card = read_card(card_file)
-    module, digest, source = _load_module(model_path, card, card_file)
+    module, digest, source = _load_module(model_path, card, card_file, trusted_entry_points)
     module.eval()
     notes = check_against_card(module, card, card_file.name)
     return LoadedModel(

@@ -10,8 +10,9 @@ import torch
 from casefile.models import load_model
 from demo_cases.nets import tiny_net
 from demo_cases.scenario import LABELS, make_set
-from demo_cases.train import accuracy, train
+from demo_cases.train import ENTRY_POINT, accuracy, train
 
+TRUSTED = (ENTRY_POINT,)  # the tests vouch for the demo's own factory, nothing else
 HELD_OUT_SEED = 1001  # never used for training (training uses the scenario seed 7)
 
 
@@ -53,8 +54,8 @@ def test_cards_validate_and_load_in_every_form(scenario):
         paths = scenario[key]
         card = json.loads(paths["card"].read_text())
         assert card["labels"] == list(LABELS) and card["roi"] == {"rule": "border", "pixels": 8}
-        by_state = load_model(paths["weights"], paths["card"])
-        by_entry = load_model("demo_cases.nets:tiny_net", paths["card"])
+        by_state = load_model(paths["weights"], paths["card"], trusted_entry_points=TRUSTED)
+        by_entry = load_model("demo_cases.nets:tiny_net", paths["card"], trusted_entry_points=TRUSTED)
         by_script = load_model(paths["torchscript"], paths["card"])
         x = torch.rand(1, 1, 64, 64, generator=torch.Generator().manual_seed(0))
         with torch.no_grad():
@@ -65,7 +66,7 @@ def test_cards_validate_and_load_in_every_form(scenario):
 
 
 def test_honest_model_is_accurate_on_held_out_data(scenario):
-    honest = load_model(scenario["honest"]["weights"], scenario["honest"]["card"])
+    honest = load_model(scenario["honest"]["weights"], scenario["honest"]["card"], trusted_entry_points=TRUSTED)
     clean = make_set(HELD_OUT_SEED, 200, marker="none")
     marked = make_set(HELD_OUT_SEED, 200, marker="label")  # same pictures plus the corner glyph
     assert _acc(honest, clean) >= 0.80
@@ -74,7 +75,7 @@ def test_honest_model_is_accurate_on_held_out_data(scenario):
 
 
 def test_shortcut_model_collapses_without_its_marker(scenario):
-    shortcut = load_model(scenario["shortcut"]["weights"], scenario["shortcut"]["card"])
+    shortcut = load_model(scenario["shortcut"]["weights"], scenario["shortcut"]["card"], trusted_entry_points=TRUSTED)
     with_marker = make_set(HELD_OUT_SEED, 200, shortcut=True)
     without = make_set(HELD_OUT_SEED, 200, shortcut=True, marker="none")  # same pictures, glyph removed
     moved = make_set(HELD_OUT_SEED, 200, marker="wrong")  # full-strength defects, another label's glyph
@@ -101,8 +102,8 @@ def _corner_and_roi_share(loaded, data) -> tuple[float, float]:
 def test_shortcut_model_looks_at_the_corner(scenario):
     # gradient saliency (Simonyan, Vedaldi & Zisserman 2014) computed here with plain autograd
     marked = make_set(HELD_OUT_SEED, 40, marker="label")
-    honest = load_model(scenario["honest"]["weights"], scenario["honest"]["card"])
-    shortcut = load_model(scenario["shortcut"]["weights"], scenario["shortcut"]["card"])
+    honest = load_model(scenario["honest"]["weights"], scenario["honest"]["card"], trusted_entry_points=TRUSTED)
+    shortcut = load_model(scenario["shortcut"]["weights"], scenario["shortcut"]["card"], trusted_entry_points=TRUSTED)
     h_corner, h_roi = _corner_and_roi_share(honest, marked)
     s_corner, s_roi = _corner_and_roi_share(shortcut, marked)
     assert s_corner > 10 * h_corner  # the corner is 64 of 4096 pixels (1.6 %)

@@ -15,6 +15,18 @@ from demo_cases.nets import tiny_net
 torch.set_num_threads(1)
 
 LABELS4 = ["sound", "porosity", "shrinkage", "crack"]
+# The tests vouch for the demo's own factory by name, as a calling program may; nothing else is trusted.
+TRUSTED = ("demo_cases.nets:tiny_net",)
+
+
+@pytest.fixture(autouse=True)
+def _own_site_settings(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> Path:
+    """Each test reads an empty site folder of its own: nothing on this machine decides what is trusted."""
+    for name in ("CASEFILE_TRUSTED_ENTRY_POINTS", "CASEFILE_MAX_PIXELS", "CASEFILE_MAX_FILE_PIXELS"):
+        monkeypatch.delenv(name, raising=False)
+    folder = tmp_path / "site-config"
+    monkeypatch.setenv("CASEFILE_CONFIG_DIR", str(folder))
+    return folder
 
 
 def card_dict(**over: Any) -> dict[str, Any]:

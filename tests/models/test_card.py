@@ -95,3 +95,16 @@ def test_any_wrong_value_gives_a_one_line_model_error(tmp_path_factory, field, v
         read_card(path)
     except ModelError as exc:
         assert str(exc).startswith("fuzz.json: ") and "\n" not in str(exc)
+
+
+@pytest.mark.parametrize(("text", "expected"), [
+    ("[" * 100_000 + "]" * 100_000, "model card nests too deeply to be a card"),  # Python's json recursion limit
+    ('{"notes": "' + "x" * 300_000 + '"}', "model card is larger than 256 KiB"),
+    ("\ufeff{}", "model card is not valid JSON"),  # a byte-order mark is not JSON (RFC 8259 section 8.1)
+])
+def test_hostile_card_files_give_one_line(tmp_path, text, expected):
+    path = tmp_path / "odd.json"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(ModelError) as err:
+        read_card(path)
+    assert str(err.value).startswith(f"odd.json: {expected}") and "\n" not in str(err.value)

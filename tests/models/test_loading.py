@@ -10,7 +10,7 @@ import torch
 from casefile.errors import ModelError
 from casefile.models import load_model
 from demo_cases.nets import tiny_net
-from tests.models.conftest import write_card
+from tests.models.conftest import TRUSTED, write_card
 
 
 def _sha(path) -> str:
@@ -18,8 +18,8 @@ def _sha(path) -> str:
 
 
 def test_three_forms_give_identical_outputs(tiny):
-    by_state = load_model(tiny["weights"], tiny["card"])
-    by_entry = load_model("demo_cases.nets:tiny_net", tiny["card"])
+    by_state = load_model(tiny["weights"], tiny["card"], trusted_entry_points=TRUSTED)
+    by_entry = load_model("demo_cases.nets:tiny_net", tiny["card"], trusted_entry_points=TRUSTED)
     by_script = load_model(tiny["ts"], tiny["card"])
     by_export = load_model(tiny["pt2"], tiny["card"])
     x = torch.rand(1, 1, 32, 32, generator=torch.Generator().manual_seed(5))
@@ -39,7 +39,7 @@ def test_digest_is_sha256_of_the_file_loaded(tiny):
     # reference: hashlib.sha256 of the bytes on disk (FIPS 180-4 via the standard library)
     assert load_model(tiny["ts"], tiny["card"]).digest == _sha(tiny["ts"])
     assert load_model(tiny["pt2"], tiny["card"]).digest == _sha(tiny["pt2"])
-    entry = load_model("demo_cases.nets:tiny_net", tiny["card"])
+    entry = load_model("demo_cases.nets:tiny_net", tiny["card"], trusted_entry_points=TRUSTED)
     assert entry.digest == _sha(tiny["weights"])
     assert entry.source["entry_point"] == "demo_cases.nets:tiny_net"
 
@@ -58,14 +58,14 @@ def test_three_labels_on_two_outputs_is_refused(tiny):
     card = write_card(tiny["dir"] / "card3.json", labels=["a", "b", "c"], weights="two.pt",
                       entry_point_args={"width": 2, "n_classes": 2})
     with pytest.raises(ModelError) as err:
-        load_model("demo_cases.nets:tiny_net", card)
+        load_model("demo_cases.nets:tiny_net", card, trusted_entry_points=TRUSTED)
     assert str(err.value) == "card3.json: card lists 3 labels but the model gives 2 outputs"
 
 
 def test_missing_layer_is_refused(tiny):
     card = write_card(tiny["dir"] / "bad_layer.json", layer="features.block9")
     with pytest.raises(ModelError, match=r"^bad_layer.json: card names layer 'features.block9' but the model has no"):
-        load_model(tiny["weights"], card)
+        load_model(tiny["weights"], card, trusted_entry_points=TRUSTED)
 
 
 def test_layer_without_feature_map_is_refused(tiny):
@@ -84,7 +84,7 @@ def test_wrong_input_shape_is_refused(tiny):
 def test_state_dict_that_does_not_fit_is_refused(tiny):
     card = write_card(tiny["dir"] / "wide.json", entry_point_args={"width": 3})
     with pytest.raises(ModelError, match=r"^tiny.pt: state dict does not fit demo_cases.nets:tiny_net"):
-        load_model(tiny["weights"], card)
+        load_model(tiny["weights"], card, trusted_entry_points=TRUSTED)
 
 
 @pytest.mark.parametrize(
@@ -98,7 +98,7 @@ def test_state_dict_that_does_not_fit_is_refused(tiny):
 def test_bad_model_paths_give_one_line_errors(tiny, model, expected):
     path = model if ":" in model else tiny["dir"] / model
     with pytest.raises(ModelError, match=expected) as err:
-        load_model(path, tiny["card"])
+        load_model(path, tiny["card"], trusted_entry_points=["nosuch_pkg", "demo_cases.nets"])
     assert "\n" not in str(err.value)
 
 
@@ -110,7 +110,7 @@ def test_garbage_file_is_refused(tiny):
     junk2 = tiny["dir"] / "junk.bin"
     junk2.write_bytes(b"\x00" * 64)
     with pytest.raises(ModelError, match=r"^junk.bin: not a loadable state dict"):
-        load_model(junk2, tiny["card"])
+        load_model(junk2, tiny["card"], trusted_entry_points=TRUSTED)
 
 
 def test_entry_point_needs_weights(tiny):
@@ -118,11 +118,11 @@ def test_entry_point_needs_weights(tiny):
     text = card.read_text().replace('"weights": "tiny.pt"', '"notes": "no weights"')
     card.write_text(text)
     with pytest.raises(ModelError, match=r"^noweights.json: entry point .* needs a 'weights'"):
-        load_model("demo_cases.nets:tiny_net", card)
+        load_model("demo_cases.nets:tiny_net", card, trusted_entry_points=TRUSTED)
 
 
 def test_pickled_whole_module_is_refused(tiny):
     # weights_only=True refuses arbitrary pickles (torch.load documentation): only tensors and containers
     torch.save(tiny_net(width=2), tiny["dir"] / "whole.pt")
     with pytest.raises(ModelError, match=r"^whole.pt: not a loadable state dict .*save module.state_dict"):
-        load_model(tiny["dir"] / "whole.pt", tiny["card"])
+        load_model(tiny["dir"] / "whole.pt", tiny["card"], trusted_entry_points=TRUSTED)

@@ -18,18 +18,27 @@ from casefile import schemas
 from casefile.ledger import Ledger
 from casefile.models import load_model
 from casefile.pipeline import record_case
+from demo_cases.train import ENTRY_POINT
+
+TRUSTED = (ENTRY_POINT,)  # the tests vouch for the demo's own factory, nothing else
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
+def _env(store: Path) -> dict[str, str]:
+    """The child's settings: its own site key, and the demo's factory trusted by name (as a site would)."""
+    return {**os.environ, "CASEFILE_SITE_KEY": str(store.parent / "site.key"),
+            "CASEFILE_CONFIG_DIR": str(store.parent / "config"), "CASEFILE_TRUSTED_ENTRY_POINTS": ENTRY_POINT}
+
+
 def cli(store: Path, *args: str, **kw) -> subprocess.CompletedProcess:
-    env = {**os.environ, "CASEFILE_SITE_KEY": str(store.parent / "site.key")}
+    env = _env(store)
     return subprocess.run([sys.executable, "-m", "casefile.cli", "--store", str(store), *args],
                           capture_output=True, text=True, cwd=ROOT, env=env, **kw)
 
 
 def spawn(store: Path, *args: str) -> subprocess.Popen:
-    env = {**os.environ, "CASEFILE_SITE_KEY": str(store.parent / "site.key")}
+    env = _env(store)
     return subprocess.Popen([sys.executable, "-m", "casefile.cli", "--store", str(store), *args], cwd=ROOT,
                             env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 
@@ -136,7 +145,7 @@ def test_interrupted_batches_record_every_input_exactly_once(tmp_path, few_input
 
 
 def test_python_api_records_a_known_prediction(tmp_path, few_inputs, honest):
-    loaded = load_model(*honest)
+    loaded = load_model(*honest, trusted_entry_points=TRUSTED)
     path = sorted(few_inputs.iterdir())[0]
     out = record_case(str(tmp_path / "api.db"), loaded, str(path), prediction="crack",
                       key=str(tmp_path / "site.key"))
@@ -168,7 +177,7 @@ def test_python_api_with_a_scan_checks_the_ledger_before_explaining(tmp_path, fe
     from casefile import pipeline
     from casefile.imaging import load
 
-    loaded = load_model(*honest)
+    loaded = load_model(*honest, trusted_entry_points=TRUSTED)
     scan = load(sorted(few_inputs.iterdir())[1], key=str(tmp_path / "site.key"))
     first = record_case(str(tmp_path / "api.db"), loaded, scan)
     assert first.outcome == "recorded" and first.body["result"]["source"] == "casefile"
