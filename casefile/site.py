@@ -91,6 +91,8 @@ def _read_file(path: Path) -> dict[str, Any]:
         raise SiteError(f"{path}: site settings cannot be read ({exc})") from None
     except json.JSONDecodeError as exc:
         raise SiteError(f"{path}: site settings are not valid JSON (line {exc.lineno}: {exc.msg})") from None
+    except RecursionError:
+        raise SiteError(f"{path}: site settings nest too deeply to be read") from None
     if not isinstance(data, dict):
         raise SiteError(f"{path}: site settings must be a JSON object")
     for key, value in data.items():

@@ -55,6 +55,7 @@ def test_file_then_environment(tmp_path, monkeypatch):
     ('{"max_pixels": "many"}', "must be a whole number"),
     ('{"max_pixels": 0}', "at least 1"),
     ('{"trusted_keys": [""]}', "non-empty strings"),
+    ("[" * 100000 + "]" * 100000, "nest too deeply"),
 ])
 def test_malformed_file_is_one_line(tmp_path, content, words):
     f = tmp_path / "site.json"
