@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from casefile.cautions import CAUTION_TEXT
-from casefile.ledger import Ledger, generate_key, seal_file_bytes
+from casefile.ledger import Ledger, generate_key
 
 # Occlusion on the 64-pixel demo models: 16-pixel patches (a quarter of the side), stride 8 → 7×7 grid.
 DEMO_PATCH, DEMO_STRIDE = 16, 8
@@ -92,16 +92,16 @@ def run_demo(out_dir: str | os.PathLike[str], *, seed: int = 7, n_cases: int = 4
     _say(f"    {n_rev} simulated second reads recorded (reader 'demo-reader (simulated)')")
     stats_text = format_text(summarise(ledger))
 
-    _say("5/6 sealing the ledger with a signing key kept outside it …")
+    _say("5/6 sealing the ledger with an Ed25519 key kept outside the database …")
     key = out / "seal.key"
     if not key.exists():
         generate_key(key)
-    seal_entry = ledger.seal(str(key), note="demo seal")
     seal_path = out / "seal.json"
-    seal_path.write_bytes(seal_file_bytes(seal_entry))
-    _say("6/6 verifying every entry, blob and query row against the seal …")
+    ledger.seal(str(key), note="demo seal", output=seal_path)
+    _say("6/6 verifying every entry, blob and query row against the seal and its trusted public key …")
     report = ledger.verify(str(seal_path), public_key=str(key) + ".pub")
-    _say("    " + report.summary())
+    for line in report.lines() + [f"note: {n}" for n in report.notes]:
+        _say("    " + line)
 
     _print_findings(out, results, stats_text, time.perf_counter() - t0)
     ledger.close()

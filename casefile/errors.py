@@ -17,6 +17,10 @@ class ValidationError(CasefileError):
     """A body does not satisfy the schema of its kind; nothing was written."""
 
 
+class DuplicateCaseError(ValidationError):
+    """The ledger already holds a case for this input, model and settings (or this case id); nothing was written."""
+
+
 class LedgerError(CasefileError):
     """The ledger cannot be opened or written as asked."""
 

@@ -10,7 +10,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from casefile.errors import CasefileError, ExplainError, InputError, ValidationError
+from casefile.errors import CasefileError, DuplicateCaseError, ExplainError, InputError, ValidationError
 from casefile.ledger import Ledger, utc_now
 from casefile.record import CaseRecord, build, settings_digest, software_versions
 
@@ -224,7 +224,7 @@ def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: di
     try:
         entry = ledger.append("case", rec.body, blobs=rec.blobs)
     except ValidationError as exc:
-        if "already recorded" in str(exc):  # another process recorded it a moment ago
+        if isinstance(exc, DuplicateCaseError):  # another process recorded it a moment ago
             return _skipped(ledger, name, rec.case_id, sheet_dir)
         reason = f"{base}: the case record was refused: {exc}"
         return record_failure(ledger, name, reason, stage="record", loaded=loaded, settings_hash=s_hash)

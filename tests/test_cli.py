@@ -59,7 +59,7 @@ def test_method_names_are_the_explain_rooms():
     (["audit", "--since", "last tuesday"], "--since"),
     (["audit", "--until", "2026-13-01"], "--until"),
     (["audit", "--json", "--csv"], "--csv"),
-    (["verify", "--public-key", "k.pub"], "--seal"),
+    (["verify", "--unsigned-ok"], "--seal"),
     (["explain", "--model", "m.pt", "--card", "c.json", "--methods", "gradcam,occlussion", "x.png"], "--methods"),
     (["explain", "--model", "m.pt", "--card", "c.json", "--patch", "0", "x.png"], "--patch"),
     (["explain", "--model", "m.pt", "--card", "c.json", "--stride", "1.5", "x.png"], "--stride"),

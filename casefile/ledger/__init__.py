@@ -1,8 +1,23 @@
-"""The append-only, hash-chained ledger: entries, blobs, derived query tables, seals and verify."""
+"""The append-only, hash-chained ledger: entries, blobs, derived query tables, seals and verify.
 
-from casefile.ledger.seal import generate_key, read_seal_file, seal_file_bytes
-from casefile.ledger.store import CaseHistory, Entry, Ledger, entry_hash, utc_now
-from casefile.ledger.verify import VerifyReport
+Imports run one way: tables, derive, merkle, keys → store → sealfile, trust → seal, report →
+seal_checks → verify → facade (the ``Ledger`` class) → this package.
+"""
 
-__all__ = ["CaseHistory", "Entry", "Ledger", "VerifyReport", "entry_hash", "generate_key", "read_seal_file",
-           "seal_file_bytes", "utc_now"]
+from casefile.ledger.facade import Ledger, SealSource
+from casefile.ledger.keys import KeySource, generate_key, load_private_key, load_public_key
+from casefile.ledger.report import ExternalSeal, VerifyReport
+from casefile.ledger.sealfile import (
+           SealFile,
+           parse_seal_file,
+           read_seal_file,
+           seal_file_bytes,
+           write_seal_file,
+)
+from casefile.ledger.store import CaseHistory, Entry, Store, entry_hash, utc_now
+from casefile.ledger.trust import SealTrust, TrustedKeys
+
+__all__ = ["CaseHistory", "Entry", "ExternalSeal", "KeySource", "Ledger", "SealFile", "SealSource", "SealTrust",
+           "Store", "TrustedKeys", "VerifyReport", "entry_hash", "generate_key", "load_private_key",
+           "load_public_key", "parse_seal_file", "read_seal_file", "seal_file_bytes", "utc_now",
+           "write_seal_file"]

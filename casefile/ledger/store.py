@@ -1,4 +1,9 @@
-"""The Ledger: open a store, append entries with their blobs in one transaction, and read them back."""
+"""The store: open a ledger database, append entries with their blobs in one transaction, read them back.
+
+This is the bottom of the ledger package: it imports no other ledger module but the tables and the
+derived-row rules. Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
+into the ``Ledger`` users open.
+"""
 
 from __future__ import annotations
 
@@ -6,10 +11,10 @@ import hashlib
 import json
 import os
 import re
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
+from typing import Any, Self, TypeVar
 
 from sqlalchemy import create_engine, event, func, select
 from sqlalchemy.engine import Connection, Engine
@@ -17,7 +22,7 @@ from sqlalchemy.exc import DatabaseError, IntegrityError, OperationalError
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
-from casefile.errors import LedgerError, ValidationError
+from casefile.errors import DuplicateCaseError, LedgerError, ValidationError
 from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
 
@@ -28,6 +33,10 @@ _INSERT_SQL = {tb.name: (f"INSERT INTO {tb.name} ({', '.join(c.name for c in tb.
                          f"VALUES ({', '.join('?' for _ in tb.columns)})", [c.name for c in tb.columns])
                for tb in (t.entries, *t.DERIVED_TABLES)}
 _HEAD_SQL = "SELECT seq, hash FROM entries ORDER BY seq DESC LIMIT 1"
+T = TypeVar("T")
+# Kinds whose bodies are computed from the ledger itself under the write lock; only their own paths
+# (seal.seal, Store.rebuild_derived) append them, through append_in.
+COMPUTED_KINDS = {"seal": "Ledger.seal (casefile seal)", "rebuild": "Ledger.rebuild_derived (casefile rebuild)"}
 
 
 def _insert_row(conn: Connection, table: str, row: dict[str, Any]) -> None:
@@ -77,8 +86,11 @@ def _url(store: str) -> str:
     return "sqlite:///" + os.path.abspath(store)
 
 
-class Ledger:
-    """An append-only, hash-chained ledger in SQLite (or another SQLAlchemy database)."""
+class Store:
+    """An append-only, hash-chained ledger in SQLite: appends, reads, and the rebuild of its query tables.
+
+    Users open ``casefile.ledger.Ledger``, which is this class plus ``seal`` and ``verify``.
+    """
 
     def __init__(self, url: str, *, create: bool = True, synchronous: str = "FULL") -> None:
         """Open (or create) the ledger at ``url``.
@@ -133,26 +145,10 @@ class Ledger:
             for ddl in t.SQLITE_TRIGGERS:
                 conn.exec_driver_sql(ddl)
 
-    def verify(self, seal: str | os.PathLike[str] | dict[str, Any] | None = None,
-               public_key: str | os.PathLike[str] | None = None, *, strict: bool = False) -> Any:
-        """Check the whole ledger (see casefile.ledger.verify); optionally against an exported seal file."""
-        from casefile.ledger.seal import load_public_key, read_seal_file
-        from casefile.ledger.verify import verify
-
-        seal_data = seal if isinstance(seal, dict) or seal is None else read_seal_file(seal)
-        trusted = load_public_key(public_key) if public_key else None
-        return verify(self, seal_data, trusted, strict=strict)
-
-    def seal(self, key_path: str | os.PathLike[str] | None = None, note: str | None = None) -> Entry:
-        """Append a seal entry over every entry so far (signed when a key file is given)."""
-        from casefile.ledger.seal import seal
-
-        return seal(self, key_path, note)
-
     def close(self) -> None:
         self.engine.dispose()
 
-    def __enter__(self) -> Ledger:
+    def __enter__(self) -> Self:
         return self
 
     def __exit__(self, *exc: object) -> None:
@@ -165,23 +161,35 @@ class Ledger:
 
     def append_many(self, items: Iterable[tuple[str, dict[str, Any], Iterable[bytes] | None]]) -> list[Entry]:
         """Append several entries in one transaction: all of them are recorded, or none."""
+        items = list(items)
+        for kind, _, _ in items:
+            if kind in COMPUTED_KINDS:
+                raise ValidationError(f"{kind} entries are computed from the ledger: make them with "
+                                      f"{COMPUTED_KINDS[kind]}")
         prepared = [self._prepare(kind, body, blob_iter) for kind, body, blob_iter in items]
         if not prepared:
             return []
-        return self._transaction(lambda conn: self._write(conn, prepared))
+        return self.transaction(lambda conn: self._write(conn, prepared))
 
-    def _transaction(self, work: Any) -> Any:
+    def transaction(self, work: Callable[[Connection], T]) -> T:
+        """Run ``work(conn)`` in one write transaction (BEGIN IMMEDIATE): all it appends is kept, or none."""
         try:
             with self.engine.connect().execution_options(write=True) as conn, conn.begin():
                 return work(conn)
         except IntegrityError as exc:
             msg = str(exc.orig)
             if "cases.run_key" in msg or "cases.case_id" in msg:
-                raise ValidationError("case refused: this input was already recorded with the same model "
-                                      "and settings") from None
+                raise DuplicateCaseError("case refused: this input was already recorded with the same model "
+                                         "and settings") from None
             raise LedgerError(f"{self.path}: append refused: {msg}") from None
         except OperationalError as exc:
             raise LedgerError(f"{self.path}: append failed: {exc.orig}") from None
+
+    def append_in(self, conn: Connection, kind: str, body: dict[str, Any],
+                  blobs: Iterable[bytes] | None = None) -> Entry:
+        """Append one entry inside a write transaction opened by ``transaction`` (for seals and rebuilds,
+        whose bodies are computed from the ledger under the same lock)."""
+        return self._write(conn, [self._prepare(kind, body, blobs)])[0]
 
     @staticmethod
     def _prepare(kind: str, body: dict[str, Any], blob_iter: Iterable[bytes] | None) -> tuple:
@@ -232,16 +240,36 @@ class Ledger:
         for name, row in rows:
             _insert_row(conn, name, row)
 
-    def rebuild_derived(self) -> int:
-        """Recompute every query table from the entries (they are derived and may be rebuilt)."""
-        with self.engine.connect().execution_options(write=True) as conn, conn.begin():
+    def rebuild_derived(self, reason: str) -> Entry:
+        """Recompute every query table from the entries and record a ``rebuild`` entry saying so.
+
+        This is the only path that writes the query tables outside an append. In one write transaction
+        it drops their guard triggers, empties and refills them, re-creates the triggers and appends the
+        ``rebuild`` entry (reason, entries read, rows written per table): the rebuild is all done and
+        recorded, or none of it is. The reason is required and is checked before anything is written.
+        """
+        if not isinstance(reason, str) or not reason.strip():
+            raise ValidationError("rebuild refused: the reason is empty; say why the query tables are rebuilt")
+
+        def work(conn: Connection) -> Entry:
+            for name in t.DERIVED_TRIGGER_NAMES:
+                conn.exec_driver_sql(f"DROP TRIGGER IF EXISTS {name}")
             for tb in t.DERIVED_TABLES:
                 conn.execute(tb.delete())
+            counts = {tb.name: 0 for tb in t.DERIVED_TABLES}
             n = 0
             for e in self.entries(conn=conn):
-                self._insert_derived(conn, derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8"))))
+                rows = derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8")))
+                self._insert_derived(conn, rows)
+                for name, _ in rows:
+                    counts[name] += 1
                 n += 1
-        return n
+            for ddl in t.DERIVED_TRIGGERS:
+                conn.exec_driver_sql(ddl)
+            body = {"rebuilt_at": utc_now(), "reason": reason.strip(), "entries": n, "rows": counts}
+            return self.append_in(conn, "rebuild", body)
+
+        return self.transaction(work)
 
     # ------------------------------------------------------------------ reading
     def head(self) -> tuple[int, str]:

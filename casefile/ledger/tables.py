@@ -1,4 +1,4 @@
-"""The ledger's tables and the database triggers that make entries and blobs append-only."""
+"""The ledger's tables and the database triggers that make entries and blobs append-only and guard query tables."""
 
 from __future__ import annotations
 
@@ -112,7 +112,7 @@ DERIVED_TABLES = (entry_blobs, cases, failures, amendments, reviews, draws, seal
 
 # Append-only, enforced by SQLite itself: an UPDATE or DELETE on entries or blobs aborts, and an
 # INSERT must extend the chain at its head (next seq, prev_hash = hash of the head entry).
-SQLITE_TRIGGERS = [
+ENTRY_TRIGGERS = [
     """CREATE TRIGGER IF NOT EXISTS entries_no_update BEFORE UPDATE ON entries
        BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: entries cannot be changed'); END""",
     """CREATE TRIGGER IF NOT EXISTS entries_no_delete BEFORE DELETE ON entries
@@ -127,4 +127,36 @@ SQLITE_TRIGGERS = [
        BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: a new entry must extend the head'); END""",
 ]
 
-TRIGGER_NAMES = [ddl.split("IF NOT EXISTS", 1)[1].split()[0] for ddl in SQLITE_TRIGGERS]
+
+def derived_guards(table: str) -> list[str]:
+    """The triggers that guard one query table: no UPDATE, no DELETE, and an INSERT only for the head entry
+    (append writes an entry and then its rows, in one transaction). The rebuild path drops and re-creates
+    them inside its own transaction; nothing else writes these tables.
+
+    On PostgreSQL the same three rules are a BEFORE UPDATE OR DELETE trigger and a BEFORE INSERT trigger
+    calling a PL/pgSQL function that raises; DDL is transactional there too, so rebuild works the same way.
+    """
+    said = f"casefile query table {table} is derived from the entries"
+    hint = "rebuild them with `casefile rebuild --reason TEXT`"
+    return [
+        f"CREATE TRIGGER IF NOT EXISTS {table}_no_update BEFORE UPDATE ON {table} "
+        f"BEGIN SELECT RAISE(ABORT, '{said}: rows cannot be changed; {hint}'); END",
+        f"CREATE TRIGGER IF NOT EXISTS {table}_no_delete BEFORE DELETE ON {table} "
+        f"BEGIN SELECT RAISE(ABORT, '{said}: rows cannot be deleted; {hint}'); END",
+        f"CREATE TRIGGER IF NOT EXISTS {table}_head_only BEFORE INSERT ON {table} "
+        "WHEN NEW.seq != COALESCE((SELECT MAX(seq) FROM entries), 0) "
+        f"BEGIN SELECT RAISE(ABORT, '{said}: a row may be added only with its entry; {hint}'); END",
+    ]
+
+
+# Every derived table is guarded, including tables added to DERIVED_TABLES later.
+DERIVED_TRIGGERS = [ddl for tb in DERIVED_TABLES for ddl in derived_guards(tb.name)]
+SQLITE_TRIGGERS = ENTRY_TRIGGERS + DERIVED_TRIGGERS
+
+
+def trigger_name(ddl: str) -> str:
+    return ddl.split("IF NOT EXISTS", 1)[1].split()[0]
+
+
+TRIGGER_NAMES = [trigger_name(ddl) for ddl in SQLITE_TRIGGERS]
+DERIVED_TRIGGER_NAMES = [trigger_name(ddl) for ddl in DERIVED_TRIGGERS]

@@ -1,59 +1,56 @@
-"""Verify a ledger end to end: hashes, links, seq order, blobs, derived tables, seals (streaming)."""
+"""Verify a ledger end to end, streaming: the chain, the blobs, the query tables, the seals, a seal file.
+
+``verify`` walks the entries in chunks and hands each entry to one check after another, each of which
+says one thing: the chain walk (seq order, link, hash, body), the blob check (present and unchanged),
+the derived-row comparison (the query tables agree with the entry), and the seal checks
+(casefile.ledger.seal_checks). It stops at the first problem and names its seq.
+"""
 
 from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import asdict, dataclass, field
+from collections.abc import Iterator
+from pathlib import Path
 from typing import Any, NamedTuple
 
 from sqlalchemy import select
+from sqlalchemy.engine import Connection
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
 from casefile.errors import ValidationError
 from casefile.ledger import tables as t
 from casefile.ledger.derive import derive
-from casefile.ledger.merkle import MerkleAccumulator
-from casefile.ledger.seal import signature_ok
-from casefile.ledger.store import READ_CHUNK, Ledger, entry_hash, referenced_blobs
+from casefile.ledger.report import VerifyReport
+from casefile.ledger.seal_checks import SealChecker
+from casefile.ledger.sealfile import SealFile
+from casefile.ledger.store import READ_CHUNK, Store, entry_hash, referenced_blobs
+from casefile.ledger.trust import TrustedKeys
+
+_DERIVED = {tb.name: tb for tb in t.DERIVED_TABLES}
+# seq first in every table, so a fetched row's first value is its seq
+_COLUMNS = {name: ["seq", *(c.name for c in tb.columns if c.name != "seq")] for name, tb in _DERIVED.items()}
 
 
-@dataclass
-class VerifyReport:
-    ok: bool = True
-    first_bad_seq: int | None = None
-    problem: str | None = None
-    entries: int = 0
-    blobs: int = 0
-    head_seq: int = 0
-    head_hash: str = t.GENESIS_HASH
-    seals_checked: int = 0
-    external_seal: dict[str, Any] | None = None
-    notes: list[str] = field(default_factory=list)
-
-    def fail(self, seq: int | None, problem: str) -> VerifyReport:
-        self.ok, self.first_bad_seq, self.problem = False, seq, problem
-        return self
-
-    def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
-
-    def summary(self) -> str:
-        if self.ok:
-            sealed = ""
-            if self.external_seal:
-                sealed = f"; matches the seal over {self.external_seal['tree_size']} entries"
-            return (f"intact: {self.entries} entries, {self.blobs} blobs, head seq {self.head_seq} "
-                    f"hash {self.head_hash[:16]}…{sealed}")
-        where = f"seq {self.first_bad_seq}" if self.first_bad_seq is not None else "ledger"
-        return f"NOT intact: first bad {where}: {self.problem}"
+class _EntryRow(NamedTuple):
+    seq: int
+    kind: str
+    body: str
+    prev_hash: str
+    hash: str
 
 
-def _bad_blobs(ledger: Ledger, report: VerifyReport) -> set[str]:
+class _Parsed(NamedTuple):
+    body: Any  # the parsed body, or the ValidationError that parsing raised
+    refs: list[str]
+
+
+def scan_blobs(store: Store, report: VerifyReport) -> set[str]:
+    """Re-hash every stored blob; return the digests whose bytes or size no longer match."""
     bad: set[str] = set()
     last = ""
-    with ledger.engine.connect() as conn:
+    with store.engine.connect() as conn:
         while True:
             rows = conn.execute(select(t.blobs).where(t.blobs.c.digest > last)
                                 .order_by(t.blobs.c.digest).limit(500)).all()
@@ -67,12 +64,29 @@ def _bad_blobs(ledger: Ledger, report: VerifyReport) -> set[str]:
             last = rows[-1].digest
 
 
-class _EntryRow(NamedTuple):
-    seq: int
-    kind: str
-    body: str
-    prev_hash: str
-    hash: str
+def _chunks(conn: Connection) -> Iterator[list[_EntryRow]]:
+    pos = 1
+    while True:
+        # plain driver-level tuples: this loop runs once per entry on ledgers of any size
+        rows = [_EntryRow(*r) for r in conn.exec_driver_sql(
+            "SELECT seq, kind, body, prev_hash, hash FROM entries WHERE seq >= ? ORDER BY seq LIMIT ?",
+            (pos, READ_CHUNK)).fetchall()]
+        if not rows:
+            return
+        yield rows
+        pos = rows[-1].seq + 1
+
+
+def _parse(rows: list[_EntryRow]) -> dict[int, _Parsed]:
+    out = {}
+    for r in rows:
+        try:
+            # the hash check proves these bytes are what append wrote (strict JSON, canonical); the plain
+            # C parser is enough here, and strict mode re-parses strictly
+            out[r.seq] = _Parsed(json.loads(r.body), referenced_blobs(r.body))
+        except ValueError as exc:
+            out[r.seq] = _Parsed(ValidationError(str(exc)), [])
+    return out
 
 
 def _strict_problem(kind: str, body: Any, raw: bytes) -> str | None:
@@ -88,159 +102,148 @@ def _strict_problem(kind: str, body: Any, raw: bytes) -> str | None:
     return None
 
 
-def verify(ledger: Ledger, seal_file: dict[str, Any] | None = None,
-           trusted_public_key: str | None = None, *, strict: bool = False) -> VerifyReport:
+class ChainWalk:
+    """Seq order, links and hashes: each entry must follow the one before it."""
+
+    def __init__(self, strict: bool) -> None:
+        self.strict = strict
+        self.expected_seq, self.prev = 1, t.GENESIS_HASH
+
+    def check(self, r: _EntryRow, body: Any) -> str | None:
+        if r.seq != self.expected_seq:
+            return f"missing entry: seq {self.expected_seq} is absent (the next entry present is seq {r.seq})"
+        if r.prev_hash != self.prev:
+            return (f"broken link: prev_hash does not match the hash of seq {r.seq - 1} "
+                    "(an entry before it was changed, removed, inserted or moved)")
+        raw = r.body.encode("utf-8")
+        if entry_hash(r.prev_hash, r.kind, raw) != r.hash:
+            return f"changed content: the {r.kind} entry's hash does not match its kind and body"
+        if isinstance(body, ValidationError):
+            return f"body is not valid canonical JSON: {body}"
+        return _strict_problem(r.kind, body, raw) if self.strict else None
+
+    def advance(self, r: _EntryRow) -> None:
+        self.prev = r.hash
+        self.expected_seq += 1
+
+
+class BlobRefs:
+    """Every blob an entry refers to is stored and unchanged."""
+
+    def __init__(self, conn: Connection, bad: set[str], parsed: dict[int, _Parsed]) -> None:
+        self.bad = bad
+        wanted = sorted({d for p in parsed.values() for d in p.refs})
+        self.present: set[str] = set()
+        for i in range(0, len(wanted), 500):
+            part = wanted[i:i + 500]
+            self.present.update(x[0] for x in conn.execute(select(t.blobs.c.digest)
+                                                            .where(t.blobs.c.digest.in_(part))))
+
+    def check(self, refs: list[str]) -> str | None:
+        for d in refs:
+            if d not in self.present:
+                return f"missing blob {d[:16]}… referred to by this entry"
+            if d in self.bad:
+                return f"changed blob {d[:16]}…: its bytes no longer hash to its digest"
+        return None
+
+
+class DerivedRows:
+    """The query-table rows of one chunk of entries, compared with what each entry derives."""
+
+    def __init__(self, conn: Connection, lo: int, hi: int) -> None:
+        self.actual: dict[tuple[str, int], list[tuple]] = {}
+        for name, cols in _COLUMNS.items():
+            sql = f"SELECT {', '.join(cols)} FROM {name} WHERE seq >= ? AND seq <= ?"
+            for r in conn.exec_driver_sql(sql, (lo, hi)).fetchall():
+                self.actual.setdefault((name, r[0]), []).append(tuple(r))
+
+    def check(self, seq: int, kind: str, body: Any, refs: list[str]) -> str | None:
+        try:
+            expected = derive(seq, kind, body, refs)
+        except (KeyError, TypeError) as exc:
+            return f"body lacks a field the query tables need: {exc}"
+        want: dict[str, list[tuple]] = {}
+        for name, row in expected:
+            want.setdefault(name, []).append(tuple(row.get(c) for c in _COLUMNS[name]))
+        for name in sorted(set(want) | {n for n in _DERIVED if (n, seq) in self.actual}):
+            if sorted(want.get(name, [])) != sorted(self.actual.get((name, seq), [])):
+                return (f"derived row disagrees: table {name!r} does not match the entry "
+                        "(rebuild the query tables, then verify again)")
+        return None
+
+
+def orphan_rows(conn: Connection, head_seq: int) -> tuple[int, str] | None:
+    """A query-table row beyond the last entry has no entry behind it."""
+    for name, tb in _DERIVED.items():
+        extra = conn.execute(select(tb.c.seq).where(tb.c.seq > head_seq).limit(1)).first()
+        if extra:
+            return extra[0], f"derived row in {name!r} has no entry behind it"
+    return None
+
+
+def _check_chunk(conn: Connection, rows: list[_EntryRow], walk: ChainWalk, seals: SealChecker, bad_blobs: set[str],
+                 report: VerifyReport) -> tuple[int, str] | None:
+    """Every check, entry by entry, over one chunk (its parsed bodies are freed before the next is read)."""
+    parsed = _parse(rows)
+    blobs, derived = BlobRefs(conn, bad_blobs, parsed), DerivedRows(conn, rows[0].seq, rows[-1].seq)
+    for r in rows:
+        body, refs = parsed[r.seq]
+        problem = (walk.check(r, body) or blobs.check(refs) or derived.check(r.seq, r.kind, body, refs)
+                   or seals.add(r.seq, r.kind, body, r.prev_hash, r.hash))
+        if problem:  # the expected seq is r.seq, or the missing one before it
+            return walk.expected_seq, problem
+        walk.advance(r)
+        report.entries += 1
+    return None
+
+
+def verify(store: Store, seal_file: SealFile | None = None, trusted: TrustedKeys | None = None, *,
+           unsigned_ok: bool = False, strict: bool = False) -> VerifyReport:
     """Check everything; stop at the first problem and name its seq.
 
-    Always: seq order, every hash, every link, blob digests and presence, the query tables, internal
-    seals and (when given) an exported seal. The hash already proves each body is byte for byte what
-    was appended (and append writes only canonical, schema-valid bodies); ``strict`` also re-checks the
+    Always: seq order, every hash, every link, blob digests and presence, the query tables, every seal
+    entry (against the entries before it, and its signer against ``trusted``), and, when given, a seal
+    file (see casefile.ledger.seal_checks). The hash already proves each body is byte for byte what was
+    appended (and append writes only canonical, schema-valid bodies); ``strict`` also re-checks the
     canonical form and the schema of every body, for ledgers written by other tools.
     """
+    trusted = trusted if trusted is not None else TrustedKeys()
     report = VerifyReport()
-    bad_blobs = _bad_blobs(ledger, report)
-    derived_tables = {tb.name: tb for tb in t.DERIVED_TABLES}
-    # seq first in every table, so a fetched row's first value is its seq
-    columns = {name: ["seq", *(c.name for c in tb.columns if c.name != "seq")] for name, tb in derived_tables.items()}
-    acc = MerkleAccumulator()
-    sealed_size = seal_file["body"]["tree_size"] if seal_file else None
-    sealed_root = sealed_hash = None
-    expected_seq, prev = 1, t.GENESIS_HASH
-    seen_seal_entry = False
-
-    with ledger.engine.connect() as conn:
-        pos = 1
-        while True:
-            # plain driver-level tuples: this loop runs once per entry on ledgers of any size
-            rows = [_EntryRow(*r) for r in conn.exec_driver_sql(
-                "SELECT seq, kind, body, prev_hash, hash FROM entries WHERE seq >= ? ORDER BY seq LIMIT ?",
-                (pos, READ_CHUNK)).fetchall()]
-            if not rows:
-                break
-            lo, hi = rows[0].seq, rows[-1].seq
-            actual: dict[tuple[str, int], list[tuple]] = {}
-            for name, cols in columns.items():
-                sql = f"SELECT {', '.join(cols)} FROM {name} WHERE seq >= ? AND seq <= ?"
-                for r in conn.exec_driver_sql(sql, (lo, hi)).fetchall():
-                    actual.setdefault((name, r[0]), []).append(tuple(r))
-            refs: dict[int, list[str]] = {}
-            parsed: dict[int, Any] = {}
-            for r in rows:
-                try:
-                    # the hash check below proves these bytes are what append wrote (strict JSON,
-                    # canonical); the plain C parser is enough here, --strict re-parses strictly
-                    parsed[r.seq] = json.loads(r.body)
-                    refs[r.seq] = referenced_blobs(r.body)
-                except ValueError as exc:
-                    parsed[r.seq] = ValidationError(str(exc))
-                    refs[r.seq] = []
-            wanted = sorted({d for ds in refs.values() for d in ds})
-            present: set[str] = set()
-            for i in range(0, len(wanted), 500):
-                part = wanted[i:i + 500]
-                present.update(x[0] for x in conn.execute(select(t.blobs.c.digest).where(t.blobs.c.digest.in_(part))))
-
-            for r in rows:
-                seq = r.seq
-                if seq != expected_seq:
-                    return report.fail(expected_seq, f"missing entry: seq {expected_seq} is absent "
-                                                     f"(the next entry present is seq {seq})")
-                raw = r.body.encode("utf-8")
-                if r.prev_hash != prev:
-                    return report.fail(seq, f"broken link: prev_hash does not match the hash of seq {seq - 1} "
-                                            "(an entry before it was changed, removed, inserted or moved)")
-                if entry_hash(r.prev_hash, r.kind, raw) != r.hash:
-                    return report.fail(seq, f"changed content: the {r.kind} entry's hash does not match its "
-                                            "kind and body")
-                body = parsed[seq]
-                if isinstance(body, ValidationError):
-                    return report.fail(seq, f"body is not valid canonical JSON: {body}")
-                if strict:
-                    problem = _strict_problem(r.kind, body, raw)
-                    if problem:
-                        return report.fail(seq, problem)
-                for d in refs[seq]:
-                    if d not in present:
-                        return report.fail(seq, f"missing blob {d[:16]}… referred to by this entry")
-                    if d in bad_blobs:
-                        return report.fail(seq, f"changed blob {d[:16]}…: its bytes no longer hash to its digest")
-                try:
-                    expected_rows = derive(seq, r.kind, body, refs[seq])
-                except (KeyError, TypeError) as exc:
-                    return report.fail(seq, f"body lacks a field the query tables need: {exc}")
-                want: dict[tuple[str, int], list[tuple]] = {}
-                for name, row in expected_rows:
-                    want.setdefault((name, seq), []).append(tuple(row.get(c) for c in columns[name]))
-                names = {k[0] for k in want} | {n for n in derived_tables if (n, seq) in actual}
-                for name in sorted(names):
-                    key = (name, seq)
-                    if sorted(want.get(key, [])) != sorted(actual.get(key, [])):
-                        return report.fail(seq, f"derived row disagrees: table {name!r} does not match "
-                                                "the entry (rebuild the query tables, then verify again)")
-                if r.kind == "seal":
-                    problem = _check_seal_entry(body, acc, prev)
-                    if problem:
-                        return report.fail(seq, problem)
-                    report.seals_checked += 1
-                if seal_file and seq == seal_file.get("seq"):
-                    seen_seal_entry = True
-                    if r.hash != seal_file.get("hash"):
-                        return report.fail(seq, "the seal entry in the ledger differs from the exported seal")
-                acc.add(bytes.fromhex(r.hash))
-                if sealed_size is not None and acc.size == sealed_size:
-                    sealed_root, sealed_hash = acc.root().hex(), r.hash
-                prev = r.hash
-                expected_seq += 1
-                report.entries += 1
-            pos = hi + 1
-
-        report.head_seq, report.head_hash = expected_seq - 1, prev
-        for name, tb in derived_tables.items():
-            extra = conn.execute(select(tb.c.seq).where(tb.c.seq > report.head_seq).limit(1)).first()
-            if extra:
-                return report.fail(extra[0], f"derived row in {name!r} has no entry behind it")
-
-    if seal_file:
-        problem = _check_external_seal(seal_file, report, sealed_root, sealed_hash, seen_seal_entry,
-                                       trusted_public_key)
+    if seal_file is not None:
+        problem = seal_file.problem()  # the file on its own, before the ledger is read
         if problem:
-            return report.fail(*problem)
+            return report.fail(None, f"{seal_file.source}: {problem}")
+    bad_blobs = scan_blobs(store, report)
+    walk, seals = ChainWalk(strict), SealChecker(trusted, seal_file)
+    with store.engine.connect() as conn:
+        for rows in _chunks(conn):
+            failure = _check_chunk(conn, rows, walk, seals, bad_blobs, report)
+            if failure:
+                return report.fail(*failure)
+        report.head_seq, report.head_hash = walk.expected_seq - 1, walk.prev
+        orphan = orphan_rows(conn, report.head_seq)
+        if orphan:
+            return report.fail(*orphan)
+    report.seals_checked = len(seals.verdicts)
+    report.seal_trust = seals.counts()
+    if seal_file is not None:
+        failure = seals.external(report, unsigned_ok)
+        if failure:
+            return report.fail(*failure)
+    _notes(store, trusted, report)
+    report.describe(unsigned_ok)
     return report
 
 
-def _check_seal_entry(body: dict[str, Any], acc: MerkleAccumulator, prev: str) -> str | None:
-    if body["tree_size"] != acc.size:
-        return f"seal covers {body['tree_size']} entries but {acc.size} come before it"
-    if body["head_hash"] != (prev if acc.size else t.GENESIS_HASH):
-        return "seal's head hash does not match the entry before it"
-    if body["merkle_root"] != acc.root().hex():
-        return "seal's Merkle root does not match the entries before it"
-    if "signature" in body and not signature_ok(body):
-        return "seal's Ed25519 signature does not verify"
-    return None
-
-
-def _check_external_seal(seal_file: dict[str, Any], report: VerifyReport, root: str | None,
-                         head_hash: str | None, seen: bool, trusted: str | None) -> tuple[int | None, str] | None:
-    body = seal_file["body"]
-    size = body["tree_size"]
-    report.external_seal = {"tree_size": size, "merkle_root": body["merkle_root"], "signed": "signature" in body}
-    if "signature" in body:
-        if not signature_ok(body):
-            return None, "the seal file's signature does not verify (the seal file was altered)"
-        if trusted and body["signature"]["public_key"] != trusted:
-            return None, "the seal was signed by a different key than the trusted public key"
-    elif trusted:
-        return None, "a trusted public key was given but the seal is not signed"
-    if report.entries < size:
-        return report.entries + 1, (f"entries missing: the ledger ends at seq {report.entries} but the seal "
-                                    f"covers {size} entries (the tail was truncated)")
-    if head_hash != body["head_hash"] or root != body["merkle_root"]:
-        return size, (f"history differs from the sealed one: entries 1..{size} no longer hash to the sealed "
-                      "Merkle root (the chain was rewritten)")
-    if seal_file.get("seq") is not None and not seen:
-        return seal_file["seq"], "the seal entry itself is missing from the ledger"
-    if not trusted and "signature" in body:
-        report.notes.append("signature checked against the key inside the seal; pass --public-key to "
-                            "check it against a key you trust")
-    return None
+def _notes(store: Store, trusted: TrustedKeys, report: VerifyReport) -> None:
+    home = Path(store.path).resolve().parent
+    for f in trusted.files:
+        if Path(f).resolve().parent == home:
+            report.notes.append(f"the trusted key {f} lies in the ledger's own folder: whoever can change the "
+                                "ledger could have replaced it; keep trusted keys where the ledger's writers "
+                                "cannot reach (SECURITY.md)")
+    n = report.seal_trust["untrusted"]
+    if n:
+        report.notes.append(f"{n} signed seal {'entry' if n == 1 else 'entries'}, but no trusted key is configured: "
+                            "signatures were checked only against the keys the seals carry")

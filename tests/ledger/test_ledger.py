@@ -11,7 +11,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from casefile.errors import ValidationError
-from casefile.ledger import Ledger, generate_key, seal_file_bytes
+from casefile.ledger import Ledger, generate_key
 from tests.ledger.bodies import amendment_body, case_body
 
 
@@ -93,17 +93,16 @@ def test_signed_seal_and_key_checks(led, tmp_path):
     other_pub = generate_key(other)
     for i in range(3):
         led.append("case", case_body(i))
-    s = led.seal(str(key))
-    assert s.body["signature"]["algorithm"] == "Ed25519" and s.body["tree_size"] == 3
     f = tmp_path / "seal.json"
-    f.write_bytes(seal_file_bytes(s))
+    s = led.seal(str(key), output=f)
+    assert s.body["signature"]["algorithm"] == "Ed25519" and s.body["tree_size"] == 3
     assert led.verify(str(f), public_key=str(pub)).ok
     r = led.verify(str(f), public_key=str(other_pub))
-    assert not r.ok and "different key" in r.problem
+    assert not r.ok and r.failure == "trust" and "not a trusted key" in r.problem
     # a seal file whose root was edited no longer carries a valid signature
     f.write_bytes(f.read_bytes().replace(s.body["merkle_root"].encode(), b"0" * 64))
-    r = led.verify(str(f))
-    assert not r.ok and "signature" in r.problem
+    r = led.verify(str(f), public_key=str(pub))
+    assert not r.ok and "altered" in r.problem
 
 
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
@@ -130,7 +129,10 @@ def test_cli_init_seal_verify_audit(tmp_path):
     led.close()
     out = run("seal", "-o", str(tmp_path / "s.json"), "--json")
     assert out.returncode == 0 and '"tree_size": 1' in out.stdout
-    assert run("verify", "--seal", str(tmp_path / "s.json")).returncode == 0
+    unsigned = run("verify", "--seal", str(tmp_path / "s.json"))
+    assert unsigned.returncode == 1 and "unsigned" in unsigned.stdout  # an unsigned seal proves no signer
+    accepted = run("verify", "--seal", str(tmp_path / "s.json"), "--unsigned-ok")
+    assert accepted.returncode == 0 and "does not prove: who made the seal" in accepted.stdout
     audit = run("audit", "--json")
     assert audit.returncode == 0 and '"case_id": "c-000001"' in audit.stdout and audit.stdout.count("\n") == 1
     assert "c-000001" in run("audit", "--csv").stdout
@@ -147,13 +149,24 @@ def test_query_tables_can_be_rebuilt_from_the_entries(led, tmp_path):
     before = {name: led.rows(name) for name in ("cases", "amendments", "entry_blobs")}
     import sqlite3
 
+    from casefile.ledger import tables as t
+
     con = sqlite3.connect(led.path)
-    con.execute("UPDATE cases SET label = 'porosity' WHERE seq = 2")  # derived rows carry no trigger
+    for name in t.DERIVED_TRIGGER_NAMES:  # the query tables are guarded: an attacker drops the triggers first
+        con.execute(f"DROP TRIGGER {name}")
+    con.execute("UPDATE cases SET label = 'porosity' WHERE seq = 2")
     con.execute("DELETE FROM entry_blobs")
     con.commit()
     con.close()
     r = led.verify()
     assert not r.ok and r.first_bad_seq == 1 and "derived row" in r.problem
-    assert led.rebuild_derived() == 3
+    with pytest.raises(ValidationError, match="reason is empty"):
+        led.rebuild_derived("  ")
+    assert led.count() == 3  # refused before anything was written
+    e = led.rebuild_derived("query tables changed by hand")
+    assert e.seq == 4 and e.kind == "rebuild" and e.body["entries"] == 3
+    assert e.body["rows"]["cases"] == 2 and e.body["rows"]["entry_blobs"] == 1
     assert {name: led.rows(name) for name in before} == before
     assert led.verify().ok
+    names = {r[0] for r in sqlite3.connect(led.path).execute("SELECT name FROM sqlite_master WHERE type='trigger'")}
+    assert set(t.TRIGGER_NAMES) <= names  # the rebuild put the guards back

@@ -17,7 +17,13 @@ VALID = {
     "failed": {"attempted_at": "2026-12-01T10:00:00Z", "file_name": "a.png", "file_sha256": None,
                "stage": "load", "reason": "a.png: truncated"},
     "seal": {"sealed_at": "2026-12-01T10:00:00Z", "tree_size": 3, "head_hash": "b" * 64,
-             "merkle_root": "c" * 64, "hash_algorithm": "sha-256"},
+             "merkle_root": "c" * 64, "hash_algorithm": "sha-256", "successor": "d" * 64,
+             "signature": {"algorithm": "Ed25519", "public_key": "e" * 64, "value": "f" * 128}},
+    "rebuild": {"rebuilt_at": "2026-12-01T10:00:00Z", "reason": "tables restored", "entries": 4,
+                "rows": {"cases": 3, "entry_blobs": 0}},
+    "seal_file": {"format": "casefile seal file, version 2", "seq": 4, "prev_hash": "b" * 64, "hash": "a" * 64,
+                  "body": {"tree_size": 3},
+                  "file_signature": {"algorithm": "Ed25519", "public_key": "e" * 64, "value": "f" * 128}},
 }
 JSON_VALUES = st.recursive(st.none() | st.booleans() | st.integers(-5, 70) | st.floats(-2, 2)
                            | st.sampled_from(["", "pass", "fail", "a" * 64, "2026-12-01T10:00:00Z", "x"]),

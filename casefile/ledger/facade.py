@@ -1,0 +1,43 @@
+"""The Ledger users open: the store, with seal and verify as methods (the one module above all three).
+
+The store sits at the bottom of the package and knows nothing of seals or verify; seal.py and verify.py
+take a store. This class only joins them, so ``Ledger(url).seal(...)`` and ``.verify(...)`` keep working
+as the Python contract says, with no import circle (not even a lazy one inside a method).
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Sequence
+
+from casefile.ledger.keys import KeySource
+from casefile.ledger.report import VerifyReport
+from casefile.ledger.seal import seal
+from casefile.ledger.sealfile import SealFile, read_seal_file
+from casefile.ledger.store import Entry, Store
+from casefile.ledger.trust import TrustedKeys
+from casefile.ledger.verify import verify
+
+SealSource = str | os.PathLike[str] | SealFile
+
+
+class Ledger(Store):
+    """An append-only, hash-chained ledger in SQLite, with seals and verify."""
+
+    def verify(self, seal: SealSource | None = None, public_key: KeySource | Sequence[KeySource] | None = None,
+               *, site_keys: bool = True, unsigned_ok: bool = False, strict: bool = False) -> VerifyReport:
+        """Check the whole ledger; with ``seal`` (a seal file or its path), also against that seal.
+
+        The trusted keys are ``public_key`` (one or several: PEM files or 64 hex digits) and, with
+        ``site_keys``, the site's trusted keys (casefile.site). A seal file whose signer is not trusted,
+        or that is unsigned, fails unless ``unsigned_ok``; the report then says it does not prove who
+        made the seal. A malformed seal file or key file raises LedgerError (one line) before any check.
+        """
+        seal_file = seal if isinstance(seal, SealFile) or seal is None else read_seal_file(seal)
+        trusted = TrustedKeys.load(public_key, site=site_keys)
+        return verify(self, seal_file, trusted, unsigned_ok=unsigned_ok, strict=strict)
+
+    def seal(self, key_path: KeySource | None = None, note: str | None = None, *,
+             successor: KeySource | None = None, output: str | os.PathLike[str] | None = None) -> Entry:
+        """Append a seal over every entry so far (see casefile.ledger.seal.seal)."""
+        return seal(self, key_path, note, successor=successor, output=output)
