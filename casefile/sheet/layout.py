@@ -10,14 +10,16 @@ from typing import Any
 
 from reportlab import rl_config
 from reportlab.lib.pagesizes import A4, LETTER
+from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
-
-from casefile.cautions import CAUTION_TITLE, CAUTIONS
 
 from .. import __version__
 from ..errors import InputError
+from . import words
+from .caution import caution_block, place_caution
 from .draw import (
     BAND,
+    CAUTION_INK,
     GREY,
     INK,
     OUTCOME_RANK,
@@ -43,20 +45,7 @@ NOTE_LIMIT = 1500  # characters of a review note printed on the sheet; the ledge
 USE_LINES = 3  # lines of the intended-use text printed on the sheet; the ledger keeps the whole text
 USE_TAIL = "(full text in the ledger record)"
 TOP_ROW = 12.0  # points between the rows of top classes in the result box
-CAUTION_LEADING = 8.8
 GAP = 6.0  # points between the checks, reviews and amendments sections
-
-
-def _fmt_num(v: Any) -> str:
-    if v is None:
-        return "—"
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    if isinstance(v, int | float):
-        return f"{v:.3g}" if abs(v) < 1000 else f"{v:.0f}"
-    if isinstance(v, dict):
-        return ", ".join(f"{k} {_fmt_num(x)}" for k, x in v.items())
-    return str(v)
 
 
 def _fmt_time(t: Any) -> str:
@@ -90,29 +79,48 @@ def _pdf_date(fixed_time: datetime | str | None, recorded_at: str | None) -> str
     return t.strftime("D:%Y%m%d%H%M%S+00'00'")
 
 
-def _kv_block(fonts: FontSet, title: str, rows: Sequence[tuple[str, str, str]], width: float,
+Row = tuple  # (label, value, font field) or (label, value, font field, note, note colour)
+
+
+def _kv_block(fonts: FontSet, title: str, rows: Sequence[Row], width: float,
               capped: frozenset[str] = frozenset()) -> tuple[float, Callable[[Canvas, float, float], None]]:
-    """A titled list of label/value pairs; the third item names the value font. Values of the labels
-    in ``capped`` are kept to ``USE_LINES`` lines, ending with a pointer to the ledger record."""
+    """A titled list of label/value pairs; the third item names the value font. A row may carry a short
+    note (and its colour) printed in bold after the value, on the same line when it fits. Values of
+    the labels in ``capped`` are kept to ``USE_LINES`` lines, ending with a pointer to the ledger record."""
     label_w = 76.0
     size, leading = 7.5, 9.2
+    room = width - label_w
 
     def lines(k: str, v: str, f: str) -> list[str]:
         font = getattr(fonts, f)
         if k in capped:
-            return wrap_capped(clean(v, font), font, size, width - label_w, USE_LINES, USE_TAIL)
-        return wrap(clean(v, font), font, size, width - label_w)
+            return wrap_capped(clean(v, font), font, size, room, USE_LINES, USE_TAIL)
+        return wrap(clean(v, font), font, size, room)
 
-    wrapped = [(k, lines(k, v, f), f) for k, v, f in rows]
-    h = 14 + sum(len(ls) for _, ls, _ in wrapped) * leading
+    laid = []
+    for row in rows:
+        k, v, f = row[:3]
+        note, colour = (row[3], row[4]) if len(row) >= 5 and row[3] else ("", INK)
+        ls = [(ln, getattr(fonts, f), INK, 0.0) for ln in lines(k, v, f)]
+        if note:
+            note = clean(note, fonts.bold)
+            end = stringWidth(ls[-1][0], ls[-1][1], size) + 8 if ls else 0.0
+            if end + stringWidth(note, fonts.bold, size) <= room:
+                ls.append((note, fonts.bold, colour, end))  # same line, after the value
+            else:
+                ls += [(ln, fonts.bold, colour, 0.0) for ln in wrap(note, fonts.bold, size, room)]
+        laid.append((k, ls))
+    h = 14 + sum(sum(1 for *_, dx in ls if dx == 0.0) for _, ls in laid) * leading
 
     def draw(c: Canvas, x: float, y: float) -> None:
         text_line(c, x, y - 9, title.upper(), fonts.bold, 7.5, GREY)
         yy = y - 14 - size
-        for k, lines, f in wrapped:
+        for k, ls in laid:
             text_line(c, x, yy, k, fonts.regular, size, GREY)
-            for line in lines:
-                text_line(c, x + label_w, yy, line, getattr(fonts, f), size)
+            for i, (line, font, colour, dx) in enumerate(ls):
+                if dx and i:
+                    yy += leading  # back to the value's line
+                text_line(c, x + label_w + dx, yy, line, font, size, colour)
                 yy -= leading
 
     return h, draw
@@ -122,14 +130,23 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
     inp, model, res = case.get("input") or {}, case.get("model") or {}, case.get("result") or {}
     sw = case.get("software") or {}
     left_w = width * 0.56
-    ident = [
+    weights = words.weights(model)
+    digest_row: tuple = ("Model digest", _short(model.get("digest")), "mono")
+    if weights is not None:
+        digest_row = (*digest_row, weights[0], CAUTION_INK if weights[1] else GREY)
+    shown = [words.kind(inp.get("kind"))]
+    if inp.get("kind") == "dicom" and inp.get("modality"):
+        shown.append(str(inp["modality"]))
+    shown.append(f"{inp.get('width', '?')} × {inp.get('height', '?')} px")
+    if isinstance(inp.get("frame"), int) and not isinstance(inp.get("frame"), bool):
+        shown.append(f"frame {inp['frame']}")
+    ident: list[tuple] = [
         ("Case", str(case.get("case_id", "—")), "mono"),
         ("Recorded", _fmt_time(case.get("recorded_at")), "regular"),
         ("Model", f"{model.get('name', '—')}  version {model.get('version', '—')}", "regular"),
-        ("Model digest", _short(model.get("digest")), "mono"),
+        digest_row,
         ("Input digest", _short(inp.get("file_sha256")), "mono"),
-        ("Input", f"{inp.get('file_name', '—')}  ({inp.get('modality', '—')}, "
-                  f"{inp.get('width', '?')}×{inp.get('height', '?')} px)", "regular"),
+        ("Input", f"{inp.get('file_name') or '—'}  ({', '.join(shown)})", "regular"),
         ("Pseudonym", str(inp.get("pseudonym") or ("none recorded" if inp.get("kind") == "dicom"
                                                    else "none (not a DICOM study)")), "mono"),
         ("Software", f"casefile {sw.get('casefile', '—')}", "regular"),
@@ -141,8 +158,15 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
     if case.get("intended_use"):
         ident.append(("Intended use", str(case["intended_use"]), "regular"))
     h1, d1 = _kv_block(fonts, "Identity", ident, left_w - 12, frozenset({"Intended use"}))
-    top = list(res.get("top") or [])[:5]
-    h2 = 62 + TOP_ROW * len(top)
+    top = [t for t in res.get("top") or [] if isinstance(t, dict)][:5]
+    n_classes = _class_count(case)
+    shown_of = (f"top {len(top)} of {n_classes} classes" if n_classes and len(top) < n_classes
+                else f"all {len(top)} classes" if top else "no class scores recorded")
+    flag = words.flags(case)
+    col_w = width - left_w - 6
+    flag_font = fonts.bold if flag and flag[1] else fonts.regular
+    flag_lines = wrap(clean(flag[0], flag_font), flag_font, 8, col_w) if flag else []
+    h2 = 72 + TOP_ROW * len(top) + 10 * len(flag_lines)
 
     def draw_result(c: Canvas, x: float, y: float) -> None:
         w = width - left_w
@@ -151,11 +175,13 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
         conf = res.get("confidence")
         text_line(c, x, y - 47, f"model confidence {conf:.1%}" if isinstance(conf, int | float)
                   else "model confidence —", fonts.regular, 8, GREY)
-        yy = y - 62
+        text_line(c, x, y - 59, shown_of, fonts.regular, 6.8, GREY)
+        yy = y - 71
         label_w = 84.0
         bar_x, bar_w = x + label_w + 4, w - label_w - 4 - 40
         for item in top:
-            p = float(item.get("p") or 0.0)
+            p = item.get("p")
+            p = float(p) if isinstance(p, int | float) and not isinstance(p, bool) else 0.0
             label = wrap(clean(str(item.get("label", "?")), fonts.regular), fonts.regular, 7.5, label_w)[0]
             text_line(c, x, yy, label, fonts.regular, 7.5)
             c.setFillColorRGB(*BAND)
@@ -164,6 +190,10 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
             c.rect(bar_x, yy - 0.5, bar_w * min(max(p, 0.0), 1.0), 6, stroke=0, fill=1)
             text_line(c, bar_x + bar_w + 4, yy, f"{p:.3f}", fonts.mono, 7.5)
             yy -= TOP_ROW
+        yy -= 2
+        for line in flag_lines:
+            text_line(c, x, yy, line, flag_font, 8, INK)
+            yy -= 10
 
     def draw(c: Canvas, x: float, y: float) -> None:
         d1(c, x, y)
@@ -175,13 +205,33 @@ def _identity_result(case: dict, fonts: FontSet, width: float, amendments: Seque
     return Block(max(h1, h2) + 4, draw)
 
 
-def _heading(fonts: FontSet, title: str, note: str = "") -> Block:
+def _class_count(case: dict) -> int | None:
+    """How many classes the model has: its labels, else the recorded scores."""
+    labels = (case.get("model") or {}).get("labels")
+    if isinstance(labels, list) and labels:
+        return len(labels)
+    scores = (case.get("result") or {}).get("scores")
+    return len(scores) if isinstance(scores, dict) and scores else None
+
+
+def _heading(fonts: FontSet, title: str, note: str = "", width: float | None = None) -> Block:
+    """A section title with a grey note after it; notes that do not fit beside it wrap under it."""
+    start = stringWidth(title, fonts.bold, 10.5) + 8
+    room = (width - start) if width is not None else None
+    lines = [note] if note else []
+    under = False
+    if note and room is not None and stringWidth(note, fonts.regular, 7.5) > room:
+        lines, under = wrap(clean(note, fonts.regular), fonts.regular, 7.5, width), True
+
     def draw(c: Canvas, x: float, y: float) -> None:
         text_line(c, x, y - 11, title, fonts.bold, 10.5)
-        if note:
-            text_line(c, x + c.stringWidth(title, fonts.bold, 10.5) + 8, y - 11, note, fonts.regular, 7.5, GREY)
+        for i, line in enumerate(lines):
+            if under:
+                text_line(c, x, y - 20 - 8.6 * i, line, fonts.regular, 7.5, GREY)
+            else:
+                text_line(c, x + start, y - 11, line, fonts.regular, 7.5, GREY)
 
-    return Block(16, draw, keep_with_next=True)
+    return Block(16 + (8.6 * len(lines) + 1 if under else 0), draw, keep_with_next=True)
 
 
 def _outcome_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str], None]:
@@ -192,21 +242,42 @@ def _outcome_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str]
     return draw
 
 
+def _role_cell(fonts: FontSet) -> Callable[[Canvas, float, float, float, str], None]:
+    def draw(c: Canvas, x: float, y: float, w: float, role: str) -> None:
+        text_line(c, x + 2.6, y - 6.6, role, fonts.bold if role == "flag" else fonts.regular, 7.5)
+
+    return draw
+
+
 def _check_blocks(case: dict, fonts: FontSet, width: float) -> tuple[list[Block], Table]:
+    """Heading, header and one row per check; with flag data recorded, a ROLE column says for each
+    check whether its outcome sends the case to a person (flag) or informs (note)."""
+    checks = [ch for ch in case.get("checks") or [] if isinstance(ch, dict)]
+    roles = any("flags" in ch for ch in checks)
     cols = [Column("OUTCOME", 54, "bold"), Column("CHECK", 90, "regular"), Column("VALUE", 42, "mono", "right"),
             Column("THRESHOLD", 52, "mono", "right"), Column("", 6)]
+    if roles:
+        cols.insert(2, Column("ROLE", 30, "regular"))
     cols.append(Column("WHAT IT MEANS", width - sum(c.width for c in cols), "regular"))
     table = Table(cols, fonts)
     table.special[0] = _outcome_cell(fonts)
-    checks = list(case.get("checks") or [])
-    blocks = [_heading(fonts, "Checks of the explanation",
-                       "each outcome shown by word and shape: ● pass  △ warn  ⊠ fail  – not run"),
-              table.header()]
+    if roles:
+        table.special[2] = _role_cell(fonts)
+    note = "each outcome shown by word and shape: ● pass  △ warn  ⊠ fail  – not run"
+    if roles:
+        note += ";  role: a flag sends the case to a person, a note informs"
+    blocks = [_heading(fonts, "Checks of the explanation", note, width), table.header()]
+
+    def row(outcome: str, name: str, role: str, v: str, t: str, meaning: str) -> Block:
+        return table.row([outcome, name, *([role] if roles else []), v, t, "", meaning])
+
     if not checks:
-        blocks.append(table.row(["not-run", "none recorded", "—", "—", "", "no checks were recorded for this case"]))
+        blocks.append(row("not-run", "none recorded", "—", "—", "—", "no checks were recorded for this case"))
     for ch in checks:
-        blocks.append(table.row([str(ch.get("outcome", "?")), str(ch.get("name", "?")), _fmt_num(ch.get("value")),
-                                 _fmt_num(ch.get("threshold")), "", str(ch.get("meaning", ""))]))
+        v = ch.get("value")
+        blocks.append(row(str(ch.get("outcome", "?")), str(ch.get("name", "?")), words.check_role(ch),
+                          words.value(v) if v is not None else words.MISSING, words.threshold(ch.get("threshold")),
+                          str(ch.get("meaning") or "")))
     return blocks, table
 
 
@@ -252,31 +323,10 @@ def _amendment_blocks(amendments: Sequence[dict], fonts: FontSet, width: float) 
     return blocks, table
 
 
-def _caution_height(fonts: FontSet, width: float) -> tuple[float, list[str]]:
-    lines: list[str] = []
-    for sentence in CAUTIONS:
-        lines.extend(wrap(clean(sentence, fonts.regular), fonts.regular, 7.5, width - 20))
-    return 20 + CAUTION_LEADING * len(lines), lines
-
-
 def _draw_frame(c: Canvas, fonts: FontSet, case: dict, entry_hash: str, page: int, pages: int,
                 size: tuple[float, float]) -> None:
-    """Cautions, footer and (after page 1) the running head: on every page."""
+    """Footer and (after page 1) the running head: on every page (the caution box is in the flow)."""
     w, h = size
-    inner = w - 2 * MARGIN
-    ch, lines = _caution_height(fonts, inner)
-    y0 = MARGIN + FOOTER_H
-    c.setStrokeColorRGB(*INK)
-    c.setLineWidth(1.2)
-    c.setFillColorRGB(1, 1, 1)
-    c.rect(MARGIN, y0, inner, ch, stroke=1, fill=1)
-    c.setFillColorRGB(*INK)
-    c.rect(MARGIN, y0 + ch - 3, inner, 3, stroke=0, fill=1)
-    text_line(c, MARGIN + 10, y0 + ch - 14, CAUTION_TITLE, fonts.bold, 8.5)
-    yy = y0 + ch - 24
-    for line in lines:
-        text_line(c, MARGIN + 10, yy, line, fonts.regular, 7.5)
-        yy -= CAUTION_LEADING
     c.setStrokeColorRGB(*RULE)
     c.setLineWidth(0.5)
     c.line(MARGIN, MARGIN + FOOTER_H - 6, w - MARGIN, MARGIN + FOOTER_H - 6)
@@ -343,8 +393,8 @@ def render_sheet(
     size = PAGE_SIZES[page_size]
     w, h = size
     inner = w - 2 * MARGIN
-    caution_h, _ = _caution_height(fonts, inner)
-    bottom = MARGIN + FOOTER_H + caution_h + 8
+    caution = caution_block(fonts, inner)
+    bottom = MARGIN + FOOTER_H + caution.height + 2  # every page keeps room for the caution box
     check_blocks, check_table = _check_blocks(case, fonts, inner)
     review_blocks, review_table = _review_blocks(list(reviews), as_of_seq, fonts, inner)
     amend_blocks, amend_table = _amendment_blocks(list(amendments), fonts, inner)
@@ -368,7 +418,7 @@ def render_sheet(
         return []
 
     top = h - MARGIN
-    pages = paginate(blocks, top - bottom, top - 16 - bottom, repeat)
+    pages = place_caution(paginate(blocks, top - bottom, top - 16 - bottom, repeat), caution, check_blocks[-1])
     with _RENDER_LOCK:
         saved_a85 = rl_config.useA85
         rl_config.useA85 = 0  # binary streams: a third smaller and several times faster to write
