@@ -166,7 +166,7 @@ def _amendment_blocks(amendments: Sequence[dict], fonts: FontSet, width: float) 
         changes = a.get("changes")
         text = str(a.get("reason", ""))
         if isinstance(changes, dict) and changes:
-            text += " — changes: " + ", ".join(f"{k} → {v}" for k, v in changes.items())
+            text += " — changes: " + ", ".join(f"{k} → {words.value(v)}" for k, v in changes.items())
         blocks.append(table.row([str(a.get("seq", "")), _fmt_short(a.get("amended_at")), str(a.get("author", "—")),
                                  text[:NOTE_LIMIT]]))
     return blocks, table

@@ -137,8 +137,10 @@ def _fixture_sheets(fx) -> list[bytes]:
     case["checks"][0]["threshold"] = {"pass": 0.5, "fail": 0.7}
     case["checks"][1]["value"] = None
     case["input"]["window"] = {"source": "file-lut", "lut_entries": 4096, "lut_first": 0}
+    amendments = fx.amendments()
+    amendments[0]["changes"].update({"model.roi": {"rule": "whole"}, "result.note": None})
     dict_case = render_sheet(case, blob=fx.BlobStore(blobs), reviews=fx.reviews(3), as_of_seq=42,
-                             entry_hash=fx.ENTRY_HASH, amendments=fx.amendments())
+                             entry_hash=fx.ENTRY_HASH, amendments=amendments)
     return [dict_case, _render(fx, dicom=False, weights_pinned=True), _render(fx, roi=None, reviews=2)]
 
 
