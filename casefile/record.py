@@ -67,6 +67,12 @@ def _plain(value: Any) -> Any:
     return None
 
 
+def _roi(card: dict[str, Any]) -> dict[str, Any]:
+    """The card's region-of-interest rule (model-input pixels), kept so a sheet can draw it."""
+    roi = _plain(card.get("roi"))
+    return {"roi": roi} if isinstance(roi, dict) and roi.get("rule") else {}
+
+
 def _top(scores: dict[str, Any], n: int = 3) -> list[dict[str, Any]]:
     ranked = sorted(((k, v) for k, v in scores.items() if v is not None), key=lambda kv: (-kv[1], kv[0]))
     return [{"label": k, "p": v} for k, v in ranked[:n]]
@@ -99,7 +105,7 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
         "input": inp,
         "model": {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest,
                   "card_digest": loaded.card_digest, "labels": list(loaded.labels),
-                  "layer": settings.get("layer")},
+                  "layer": settings.get("layer"), **_roi(loaded.card)},
         "preprocessing": loaded.preprocessing_record(scan),
         "settings": settings,
         "settings_digest": s_digest,

@@ -77,26 +77,28 @@ def _sheet_usage(args: argparse.Namespace) -> str | None:
 
 
 def cmd_export(args: argparse.Namespace) -> int:
-    from casefile.exchange import export_case
+    from casefile.exchange import EMPTY_PATIENT, encapsulated_pdf_for_case, export_case, patient_from, push
     from casefile.sheet import case_inputs, render_sheet
 
     led = open_ledger(args)
     inputs = case_inputs(led, args.case_id)
     case = inputs.pop("case")
+    patient = patient_from(args.patient_from, case) if args.patient_from else None  # refused before any write
+    module = patient.attributes if patient else None
     pdf = render_sheet(case, **inputs)
     if args.dicom:
-        out = export_case(case, pdf, dicom_path=args.dicom, entry_hash=inputs["entry_hash"])
+        out = export_case(case, pdf, dicom_path=args.dicom, entry_hash=inputs["entry_hash"], patient_module=module)
         if out.reason:
             err(f"casefile export: {args.case_id}: {out.reason}; the PDF was written to {out.pdf_path}")
             return 1
+        err(f"casefile export: {patient.words() if patient else EMPTY_PATIENT}")
         print(out.dicom_path)
         return 0
-    from casefile.exchange import encapsulated_pdf_for_case, push
-
     host, _, port = args.pacs.rpartition(":")
-    ds = encapsulated_pdf_for_case(case, pdf, entry_hash=inputs["entry_hash"])
+    ds = encapsulated_pdf_for_case(case, pdf, entry_hash=inputs["entry_hash"], patient_module=module)
+    err(f"casefile export: {patient.words() if patient else EMPTY_PATIENT}")
     for status in push([ds], host, int(port), args.called_aet, calling_aet=args.calling_aet):
-        print(status)
+        print(f"{status.meaning}: SOP Instance {status.sop_instance_uid} at {args.called_aet}@{args.pacs}")
     return 0
 
 
@@ -158,6 +160,11 @@ def register(sub: argparse._SubParsersAction) -> None:
     where.add_argument("--pacs", metavar="HOST:PORT", help="send it to this archive with C-STORE")
     sp.add_argument("--called-aet", default="ANY-SCP", help="the archive's AE title (with --pacs)")
     sp.add_argument("--calling-aet", default="CASEFILE", help="our AE title (with --pacs)")
+    sp.add_argument("--patient-from", metavar="SOURCE.dcm",
+                    help="copy the Patient module (name, ID, birth date, sex ...) from the case's own source file "
+                         "into the exported object, so the archive files it with its study; read at export time "
+                         "only, never recorded in the ledger. Refused unless the file's SHA-256 (or, with a note, "
+                         "its SOP Instance UID) matches the case. Without it Patient Name and ID are empty")
 
     sp = command(sub, "demo", cmd_demo, "run the whole job on the synthetic scenario", json_=False)
     sp.add_argument("--dir", default="demo_out", help="where to write the demo (default ./demo_out)")

@@ -12,11 +12,13 @@ from pydicom.dataset import Dataset
 from ..errors import InputError
 from .dicom import NO_DICOM_SOURCE, encapsulated_pdf, encapsulated_pdf_for_case, save, secondary_capture
 from .errors import ExchangeError
+from .patient import EMPTY_PATIENT, PATIENT_MODULE, PatientModule, patient_from
 from .push import StoreStatus, push
 from .rows import export_rows
 
-__all__ = ["ExchangeError", "ExportOutcome", "NO_DICOM_SOURCE", "StoreStatus", "encapsulated_pdf",
-           "encapsulated_pdf_for_case", "export_case", "export_rows", "push", "save", "secondary_capture"]
+__all__ = ["EMPTY_PATIENT", "ExchangeError", "ExportOutcome", "NO_DICOM_SOURCE", "PATIENT_MODULE", "PatientModule",
+           "StoreStatus", "encapsulated_pdf", "encapsulated_pdf_for_case", "export_case", "export_rows",
+           "patient_from", "push", "save", "secondary_capture"]
 
 
 @dataclass(frozen=True)

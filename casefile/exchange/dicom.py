@@ -1,10 +1,11 @@
 """DICOM objects made from a case sheet: Encapsulated PDF (PS3.3 A.45) and Secondary Capture (A.8).
 
 Identifiers: casefile records never hold the patient's name, ID or birth date, so the Patient module's
-Type 2 attributes are written empty unless the caller passes ``patient_module`` (for instance a site
-that re-attaches the identifiers from its own system). The keyed pseudonym is *not* put in PatientID:
-an archive would file the sheet under a different "patient" than the source study, and the pseudonym
-is already printed on the sheet itself.
+Type 2 attributes are written empty unless the caller passes ``patient_module`` (keyword -> value, only
+attributes of the Patient module, PS3.3 C.7.1.1): ``exchange.patient.patient_from`` reads them from the
+case's source file at export time, or a site re-attaches them from its own system. The keyed pseudonym
+is *not* put in PatientID: an archive would file the sheet under a different "patient" than the
+source study, and the pseudonym is already printed on the sheet itself.
 """
 
 from __future__ import annotations
@@ -27,10 +28,10 @@ from pydicom.uid import (
 from .. import __version__
 from ..errors import InputError
 from .errors import ExchangeError
+from .patient import PATIENT_MODULE, PATIENT_TYPE2
 
 NO_DICOM_SOURCE = "no DICOM object made: the source was not a DICOM study"
-# Patient module (PS3.3 C.7.1.1) Type 2 attributes; General Study (C.7.2.1) Type 2 attributes.
-PATIENT_TYPE2 = ("PatientName", "PatientID", "PatientBirthDate", "PatientSex")
+# General Study (PS3.3 C.7.2.1) Type 2 attributes.
 STUDY_TYPE2 = ("StudyDate", "StudyTime", "ReferringPhysicianName", "StudyID", "AccessionNumber")
 _UID_NAMESPACE = uuid.uuid5(uuid.NAMESPACE_URL, "casefile:dicom-export")
 SERIES_NUMBER = 9701  # a high number keeps the sheets apart from the acquisition series (common practice)
@@ -73,8 +74,8 @@ def _base(sop_class: str, *, study_uid: str, patient_module: dict[str, Any] | No
     for kw in PATIENT_TYPE2:
         setattr(ds, kw, "")
     for kw, value in (patient_module or {}).items():
-        if kw not in PATIENT_TYPE2 and not kw.startswith("Patient"):
-            raise InputError(f"exchange: {kw} is not a Patient module attribute")
+        if kw not in PATIENT_MODULE:
+            raise InputError(f"exchange: {kw} is not an attribute of the Patient module (PS3.3 C.7.1.1)")
         setattr(ds, kw, value)
     ds.StudyInstanceUID = study_uid
     for kw in STUDY_TYPE2:

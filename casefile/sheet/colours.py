@@ -188,32 +188,57 @@ def _grow(mask: np.ndarray) -> np.ndarray:
     return mask | pad[:-2, 1:-1] | pad[2:, 1:-1] | pad[1:-1, :-2] | pad[1:-1, 2:]
 
 
+OVERLAY_RAMP = (0.15, 0.6)  # map values where an overlay starts to show and where it reaches full strength
+CONTOUR_LEVELS = (0.5, 0.8)  # fractions of the map's maximum
+CONTOUR_INK = (26.0, 28.0, 33.0)  # the sheet's ink colour (draw.INK) in 0..255
+CONTOUR_HALO = (255.0, 255.0, 255.0)
+
+
 def overlay(
     display_uint8: np.ndarray,
     map_float: np.ndarray,
     *,
-    opacity: float = 0.45,
-    contours: tuple[float, ...] | None = (0.5, 0.8),
+    opacity: float = 0.9,
+    ramp: tuple[float, float] | None = OVERLAY_RAMP,
+    contours: tuple[float, ...] | None = CONTOUR_LEVELS,
 ) -> np.ndarray:
-    """Blend the coloured map over the displayed image; draw contour lines (white, edged in black).
+    """The coloured map over the displayed image, strong where the map is high, with contour lines.
 
-    The map is normalised to 0..1 by its maximum and resized to the display size bilinearly, then mixed
-    at a fixed ``opacity``; each contour level is a white line with a thin black edge so it shows on
-    both light and dark image regions.
+    The map is normalised to 0..1 by its maximum and resized to the display size bilinearly. Its
+    opacity follows the map value: none below ``ramp[0]``, rising linearly to ``opacity`` at
+    ``ramp[1]`` and above, so low values leave the picture as it is and hot spots stand out in print
+    (``ramp=None``: the same ``opacity`` everywhere). Each contour level is a dark line with a white
+    edge outside it, so it shows on light and dark regions alike; the highest level is drawn twice as
+    thick, so the two levels differ by shape as well.
     """
     if not 0.0 <= opacity <= 1.0:
         raise ValueError(f"opacity must be within 0..1, got {opacity}")
+    if ramp is not None and not 0.0 <= ramp[0] < ramp[1] <= 1.0:
+        raise ValueError(f"ramp must be two increasing values within 0..1, got {ramp}")
     base = _as_rgb(display_uint8).astype(np.float32)
     h, w = base.shape[:2]
     m = normalise_map(map_float, (h, w))
     colour = apply_map(m).astype(np.float32)
-    out = (1.0 - opacity) * base + opacity * colour
+    if ramp is None:
+        alpha = np.full((h, w, 1), opacity, dtype=np.float32)
+    else:
+        alpha = (opacity * np.clip((m - ramp[0]) / (ramp[1] - ramp[0]), 0.0, 1.0))[..., None]
+    out = (1.0 - alpha) * base + alpha * colour
     if contours:
-        for level in contours:
-            edge = contour_edges(m, float(level))
-            out[_grow(edge) & ~edge] = (0.0, 0.0, 0.0)
-            out[edge] = (255.0, 255.0, 255.0)
+        levels = sorted(float(v) for v in contours)
+        for level in levels:
+            edge = contour_edges(m, level)
+            if level == levels[-1] and len(levels) > 1:
+                edge = _grow(edge) & (m >= level)  # two pixels wide, inside the level
+            out[_grow(edge) & ~edge & (m < level)] = CONTOUR_HALO
+            out[edge] = CONTOUR_INK
     return np.clip(np.round(out), 0, 255).astype(np.uint8)
+
+
+def map_picture(map_float: np.ndarray, size: tuple[int, int]) -> np.ndarray:
+    """The map alone in the colour map, normalised by its maximum, at ``size`` = (h, w): for maps
+    whose fine speckle reads better without the picture under it (gradient saliency)."""
+    return apply_map(normalise_map(map_float, size))
 
 
 def png_bytes(rgb: np.ndarray) -> bytes:

@@ -15,6 +15,10 @@ INK = (0.10, 0.11, 0.13)
 GREY = (0.42, 0.44, 0.47)
 RULE = (0.78, 0.80, 0.82)
 BAND = (0.93, 0.94, 0.95)
+CAUTION_INK = (0.62, 0.22, 0.0)  # short cautions beside a value: a dark orange, always with words
+# The region-of-interest line: a strong magenta, a hue the colour map never takes (it runs from blue
+# through teal and green to yellow), drawn dashed so it differs by shape as well as by colour.
+ROI_INK = (0.80, 0.0, 0.55)
 
 OUTCOME_WORDS = {"pass": "pass", "warn": "warn", "fail": "fail", "not-run": "not run"}
 OUTCOME_RANK = {"pass": 0, "not-run": 1, "warn": 2, "fail": 3}

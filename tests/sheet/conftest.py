@@ -33,3 +33,26 @@ def sheet_pdf(fx) -> bytes:
     case, blobs = fx.build_case()
     return render_sheet(case, blob=fx.BlobStore(blobs), reviews=fx.reviews(2), as_of_seq=42,
                         entry_hash=fx.ENTRY_HASH)
+
+
+@pytest.fixture(scope="session")
+def real_ledger(tmp_path_factory):
+    """Four demo inputs (two DICOM, two PNG; two with the corner marker) explained and recorded by the
+    demo's shortcut model: real case bodies with every method's parameters, for the sheet tests."""
+    import torch
+
+    from casefile.ledger import Ledger
+    from casefile.models import load_model
+    from casefile.pipeline import RunSettings, explain_batch
+    from demo_cases.build import write_inputs
+    from demo_cases.train import train
+
+    torch.set_num_threads(1)
+    out = tmp_path_factory.mktemp("real-cases")
+    truth = write_inputs(out / "inputs", seed=7, n_cases=4)
+    model = train(7, shortcut=True, out_dir=out / "models")
+    ledger = Ledger(str(out / "casefile.db"))
+    summary = explain_batch(ledger, [out / "inputs" / n for n in truth], load_model(model["weights"], model["card"]),
+                            RunSettings(), progress=False)
+    assert summary.recorded == 4, summary.text()
+    return ledger

@@ -53,9 +53,18 @@ LONG_USE = ("Demonstration only: sorts synthetic 64x64 chest-like pictures into 
             "operating point and the known failure modes.")
 
 
+BORDER_ROI = {"rule": "border", "pixels": 8}  # the demo cards' rule: leave out an 8-pixel border
+
+
 def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: str = "c-000123",
-               intended_use: str | None = None, pseudonym: str | None = None) -> tuple[dict, dict[str, bytes]]:
-    """A case body shaped like DEVELOPERS.md "Case body", and its blobs keyed by SHA-256 hex."""
+               intended_use: str | None = None, pseudonym: str | None = None, roi: dict | None = BORDER_ROI,
+               weights_pinned: bool | None = None, flags: bool = False, n_classes: int = 3,
+               occlusion_params: dict | None = None) -> tuple[dict, dict[str, bytes]]:
+    """A case body shaped like DEVELOPERS.md "Case body", and its blobs keyed by SHA-256 hex.
+
+    ``roi`` goes to ``model.roi`` (None: an older record without it); ``weights_pinned`` to
+    ``model.weights_pinned``; ``flags`` adds the flag fields (``checks[i].flags``, ``flagged``,
+    ``flags``); ``n_classes`` 4 adds a fourth class, so the result shows the top 3 of 4."""
     blobs: dict[str, bytes] = {}
 
     def put(b: bytes) -> str:
@@ -67,7 +76,8 @@ def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: 
     display_blob = put(_png(disp))
     methods = [
         ("gradcam", {"layer": "features.3", "target": "nodule"}, (0.68, 0.42), 0.01),
-        ("occlusion", {"patch": 8, "stride": 4, "fill": 0.0, "target": "nodule"}, (0.66, 0.45), 0.02),
+        ("occlusion", occlusion_params or {"patch": 8, "stride": 4, "fill": 0.0, "target": "nodule"}, (0.66, 0.45),
+         0.02),
         ("gradient", {"target": "nodule", "smoothing": "none"}, (0.7, 0.4), 0.005),
     ][:n_maps]
     maps = []
@@ -78,8 +88,11 @@ def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: 
             "raw_blob": put(m.tobytes()), "overlay_blob": put(_png(disp)),
             "min": float(m.min()), "max": float(m.max()),
         })
-    labels = ["clear", "nodule", "artefact"]
-    scores = {"clear": 0.081, "nodule": 0.873, "artefact": 0.046}
+    labels = ["clear", "nodule", "artefact", "motion"][:n_classes]
+    scores = {"clear": 0.081, "nodule": 0.873, "artefact": 0.046, "motion": 0.0}
+    if n_classes == 4:
+        scores.update(artefact=0.026, motion=0.020)
+    scores = {k: scores[k] for k in labels}
     body = {
         "case_id": case_id,
         "recorded_at": "2026-03-14T09:26:53Z",
@@ -106,12 +119,13 @@ def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: 
             "digest": _digest(b"model weights"), "card_digest": _digest(b"model card"),
             "labels": labels, "layer": "features.3",
         },
-        "preprocessing": {"resize": [size, size], "mean": [0.5], "std": [0.25]},
+        "preprocessing": {"input": {"channels": 1, "height": size, "width": size}, "resize": [size, size],
+                          "mean": [0.5], "std": [0.25]},
         "settings": {"methods": [m[0] for m in methods], "seed": 0},
         "settings_digest": _digest(b"settings"),
         "result": {
             "label": "nodule", "label_index": 1, "confidence": 0.873, "scores": scores,
-            "top": [{"label": k, "p": v} for k, v in sorted(scores.items(), key=lambda kv: -kv[1])],
+            "top": [{"label": k, "p": v} for k, v in sorted(scores.items(), key=lambda kv: -kv[1])][:3],
             "source": "casefile",
         },
         "maps": maps,
@@ -131,6 +145,14 @@ def build_case(*, size: int = 64, n_maps: int = 3, dicom: bool = True, case_id: 
         ],
         "status": "fail",
     }
+    if roi is not None:
+        body["model"]["roi"] = dict(roi)
+    if weights_pinned is not None:
+        body["model"]["weights_pinned"] = weights_pinned
+    if flags:  # region focus sends the case to a person; the method-agreement warning only informs
+        for ch in body["checks"]:
+            ch["flags"] = ch["name"] == "region-focus"
+        body["flagged"], body["flags"] = True, ["region-focus"]
     if intended_use is not None:
         body["intended_use"] = intended_use
     if pseudonym is not None:

@@ -14,7 +14,16 @@ from hypothesis.extra.numpy import arrays
 from PIL import Image
 from skimage.color import deltaE_ciede2000, rgb2lab
 
-from casefile.sheet.colours import apply_map, colour_lut, lab_to_srgb, overlay, png_bytes, scale_bar
+from casefile.sheet.colours import (
+    CONTOUR_INK,
+    apply_map,
+    colour_lut,
+    lab_to_srgb,
+    map_picture,
+    overlay,
+    png_bytes,
+    scale_bar,
+)
 
 # Machado, Oliveira & Fernandes 2009, "A physiologically-based model for simulation of color vision
 # deficiency", IEEE TVCG 15(6): deuteranopia at severity 1.0, applied to linear sRGB (from memory).
@@ -88,9 +97,47 @@ def test_overlay_blend_and_contours():
     m = np.zeros((32, 32), np.float32)
     m[8:24, 8:24] = 1.0
     a = overlay(disp, m, contours=(0.5,))
-    assert np.array_equal(a[8, 16], [255, 255, 255])  # the edge of the square is drawn white
-    assert np.array_equal(a[7, 16], [0, 0, 0])  # edged in black outside
-    assert not np.array_equal(a[16, 16], [255, 255, 255])  # the inside stays a blend
+    assert np.array_equal(a[8, 16], CONTOUR_INK)  # the edge of the square is drawn in dark ink
+    assert np.array_equal(a[7, 16], [255, 255, 255])  # edged in white outside, so it shows on dark ground
+    assert not np.array_equal(a[16, 16], CONTOUR_INK)  # the inside stays a blend
+
+
+def test_overlay_strength_follows_the_map_value():
+    disp = np.full((20, 20), 120, np.uint8)
+    m = np.zeros((20, 20), np.float32)
+    m[:, 10:] = 1.0
+    m[:, :5] = 0.1  # below the ramp's start: the picture shows through unchanged
+    m[:, 5:10] = 0.375  # half way up the ramp (0.15 to 0.6): half the opacity
+    a = overlay(disp, m, contours=None)
+    assert np.array_equal(a[3, 2], [120, 120, 120])
+    top = np.round(0.1 * 120 + 0.9 * colour_lut()[255].astype(float))
+    assert np.array_equal(a[3, 15], top)  # full strength (0.9) where the map is at its maximum
+    half = np.round(0.55 * 120 + 0.45 * colour_lut()[round(0.375 * 255)].astype(float))
+    assert np.allclose(a[3, 7], half, atol=1)
+    fixed = overlay(disp, m, opacity=0.45, ramp=None, contours=None)
+    assert not np.array_equal(fixed[3, 2], [120, 120, 120])  # a fixed blend tints even the lowest values
+    with pytest.raises(ValueError, match="ramp"):
+        overlay(disp, m, ramp=(0.6, 0.2))
+
+
+def test_the_higher_contour_is_drawn_thicker():
+    disp = np.zeros((40, 40), np.uint8)
+    yy, xx = np.mgrid[0:40, 0:40]
+    m = np.exp(-((yy - 20.0) ** 2 + (xx - 20.0) ** 2) / 120.0).astype(np.float32)
+    a = overlay(disp, m, contours=(0.5, 0.8))
+    ink = np.all(a == CONTOUR_INK, axis=2)
+    row = ink[20]
+    runs = np.diff(np.flatnonzero(np.diff(np.r_[0, row.astype(int), 0])))[::2]  # lengths of ink runs
+    # left to right on the middle row: the 0.5 line, the 0.8 line, the 0.8 line, the 0.5 line
+    assert len(runs) == 4 and runs[1] == runs[2] == 2 and runs[0] == runs[3] == 1
+
+
+def test_map_picture_is_the_map_alone():
+    m = np.zeros((4, 4), np.float32)
+    m[1, 1] = 3.0
+    pic = map_picture(m, (8, 8))
+    assert pic.shape == (8, 8, 3)
+    assert np.array_equal(pic[7, 7], colour_lut()[0]) and tuple(pic[2, 2]) != tuple(colour_lut()[0])
 
 
 @settings(max_examples=15, deadline=None)
