@@ -45,14 +45,15 @@ def real_ledger(tmp_path_factory):
     from casefile.models import load_model
     from casefile.pipeline import RunSettings, explain_batch
     from demo_cases.build import write_inputs
-    from demo_cases.train import train
+    from demo_cases.train import ENTRY_POINT, train
 
     torch.set_num_threads(1)
     out = tmp_path_factory.mktemp("real-cases")
     truth = write_inputs(out / "inputs", seed=7, n_cases=4)
     model = train(7, shortcut=True, out_dir=out / "models")
     ledger = Ledger(str(out / "casefile.db"))
-    summary = explain_batch(ledger, [out / "inputs" / n for n in truth], load_model(model["weights"], model["card"]),
+    summary = explain_batch(ledger, [out / "inputs" / n for n in truth], load_model(model["weights"], model["card"],
+                                                                                     trusted_entry_points=[ENTRY_POINT]),
                             RunSettings(), progress=False)
     assert summary.recorded == 4, summary.text()
     return ledger
