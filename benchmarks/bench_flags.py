@@ -87,9 +87,9 @@ def report(seed: int, cases: list[Case]) -> None:
     honest = [c for c in cases if c["model"] == "honest"]
     wrong = [c for c in honest if not c["right"]]
     caught = sum(1 for c in wrong if c["flagged"])
-    held = "held-in (the demo)" if seed == 7 else "held out"
+    held = "held in: the demo's seed" if seed == 7 else "held out"
     print(f"\nseed {seed} ({held})")
-    print(f"  default policy     honest {share(cases, 'honest', default)}   shortcut {share(cases, 'shortcut', default)}"
+    print(f"  {'default policy':<31} honest {share(cases, 'honest', default)}   shortcut {share(cases, 'shortcut', default)}"
           f"   honest model's wrong answers flagged: {caught}/{len(wrong)}")
     for name in DEFAULT_FLAG_POLICY:
         row = []
@@ -98,19 +98,19 @@ def report(seed: int, cases: list[Case]) -> None:
             o = [c["checks"][name][0] for c in mine]
             row.append(f"{model} flags {sum(1 for c in mine if flags(name, c['checks'][name][0])):>2} "
                        f"warn {o.count('warn'):>2} fail {o.count('fail'):>2}")
-        print(f"  {name:<17}  ({DEFAULT_FLAG_POLICY[name]:<12}) " + "   ".join(row))
+        print(f"  {name:<16} ({DEFAULT_FLAG_POLICY[name]:<12}) " + "   ".join(row))
     for fp in (0.7, 0.75, 0.85, 0.9):
-        print(f"  region focus pass at {fp:<4}     honest {share(cases, 'honest', default, focus_pass=fp)}   "
+        print(f"  region focus pass at {fp:<4}       honest {share(cases, 'honest', default, focus_pass=fp)}   "
               f"shortcut {share(cases, 'shortcut', default, focus_pass=fp)}")
     for m in (0.05, 0.15, 0.2):
-        print(f"  confidence margin {m:<4}        honest {share(cases, 'honest', default, margin=m)}   "
+        print(f"  confidence margin {m:<4}          honest {share(cases, 'honest', default, margin=m)}   "
               f"shortcut {share(cases, 'shortcut', default, margin=m)}")
-    for name, rule in (("confidence", "flag-on-warn"), ("deletion", "flag-on-fail"), ("randomisation", "flag-on-warn"),
-                       ("region_focus", "flag-on-fail"), ("confidence", "note")):
+    for name, rule in (("confidence", "flag-on-warn"), ("confidence", "note"), ("deletion", "flag-on-fail"),
+                       ("randomisation", "flag-on-warn"), ("region_focus", "flag-on-fail")):
         alt = by_policy({**DEFAULT_FLAG_POLICY, name: rule})
-        print(f"  {name} as {rule:<13}  honest {share(cases, 'honest', alt)}   shortcut {share(cases, 'shortcut', alt)}")
+        print(f"  {name + ' as ' + rule:<31} honest {share(cases, 'honest', alt)}   shortcut {share(cases, 'shortcut', alt)}")
     old = by_policy(dict.fromkeys(DEFAULT_FLAG_POLICY, "flag-on-warn"))
-    print(f"  old rule: any warn or fail  honest {share(cases, 'honest', old)}   shortcut {share(cases, 'shortcut', old)}")
+    print(f"  {'old rule: any warn or fail':<31} honest {share(cases, 'honest', old)}   shortcut {share(cases, 'shortcut', old)}")
 
 
 def main(seeds: list[int]) -> None:

@@ -127,14 +127,17 @@ def _pct(x: float | None) -> str:
 
 
 def _first_sheet(result: dict[str, Any], flagged_by: str | None) -> str | None:
-    """The first sheet of a case flagged by check ``flagged_by``, or (None) of a case with no flag at all."""
-    for o in result["summary"].outcomes:
-        if not (o.sheet and o.body):
-            continue
-        flags = o.body.get("flags", [])
-        if (flagged_by in flags) if flagged_by else not flags:
-            return o.sheet
-    return next((o.sheet for o in result["summary"].outcomes if o.sheet), None)
+    """The first sheet of a case flagged by a failure of check ``flagged_by`` (else by a warning of it), or,
+    with None, of a case with no flag at all."""
+    done = [o for o in result["summary"].outcomes if o.sheet and o.body]
+    if flagged_by is None:
+        picks = [o for o in done if not o.body.get("flags")]
+    else:
+        said = [(o, {c["name"]: c["outcome"] for c in o.body["checks"]}.get(flagged_by)) for o in done
+                if flagged_by in o.body.get("flags", [])]
+        picks = [o for o, outcome in said if outcome == "fail"] + [o for o, _ in said]
+    chosen = picks or done
+    return chosen[0].sheet if chosen else None
 
 
 def flag_line(who: str, r: dict[str, Any], goal: str) -> str:

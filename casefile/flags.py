@@ -30,7 +30,7 @@ FLAG_RULES: tuple[str, ...] = get_args(FlagRule)
 # One rule per check; the reasons are in casefile.explain.checks (module docstring) and the README.
 DEFAULT_FLAG_POLICY: dict[str, FlagRule] = {
     "numerical": "flag-on-fail",
-    "confidence": "flag-on-warn",
+    "confidence": "flag-on-fail",
     "randomisation": "flag-on-fail",
     "method_agreement": "note",
     "deletion": "note",

@@ -18,7 +18,7 @@ from tests.ledger.bodies import case_body
 
 @pytest.mark.parametrize(("name", "outcome", "flagged"), [
     ("region_focus", "warn", True), ("region_focus", "fail", True), ("region_focus", "pass", False),
-    ("confidence", "warn", True), ("confidence", "fail", True),
+    ("confidence", "warn", False), ("confidence", "fail", True),
     ("randomisation", "warn", False), ("randomisation", "fail", True),
     ("numerical", "fail", True), ("deletion", "fail", False), ("method_agreement", "warn", False),
     ("region_focus", "not-run", False), ("a_check_nobody_classed", "fail", True),
