@@ -11,7 +11,8 @@ from casefile.review.plans import draw_plan
 def _population(n: int) -> list[dict]:
     rng = random.Random(0)
     return [{"case_id": f"c{i}", "seq": i + 1, "label": rng.choice("ab"),
-             "status": rng.choice(["pass", "warn", "fail", "not-run"])} for i in range(n)]
+             "status": rng.choice(["pass", "warn", "fail", "not-run"]), "flagged": int(rng.random() < 0.1)}
+            for i in range(n)]
 
 
 def _time(plan: str, pop: list[dict], **kw: object) -> float:

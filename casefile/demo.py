@@ -20,18 +20,30 @@ def _say(msg: str) -> None:
     print(msg, flush=True)
 
 
+FLAG_GOALS = {"honest": 0.10, "shortcut": 0.90}  # at most 10 % of honest cases flagged, at least 90 % of shortcut
+
+
 def flag_rates(outcomes: list[Any], truth: dict[str, Any]) -> dict[str, Any]:
-    """Share of cases whose region-focus check failed or warned, with and without the corner marker."""
+    """Flags on one model's cases: the share flagged (sent to a person), per check, and region focus's
+    fails and warns with and without the corner marker."""
     counts = {True: [0, 0], False: [0, 0]}
+    flagged, cases = 0, 0
+    by_check: dict[str, int] = {}
     for out in outcomes:
         if out.body is None:
             continue
+        cases += 1
+        flagged += bool(out.body.get("flagged"))
+        for name in out.body.get("flags", []):
+            by_check[name] = by_check.get(name, 0) + 1
         marker = truth[Path(out.input).name]["marker"]
         focus = {c["name"]: c["outcome"] for c in out.body["checks"]}.get("region_focus")
         counts[marker][1] += 1
         counts[marker][0] += focus in ("fail", "warn")
     rate = {k: (v[0] / v[1] if v[1] else None) for k, v in counts.items()}
-    return {"with_marker": rate[True], "without_marker": rate[False],
+    return {"flagged": flagged, "cases": cases, "share_flagged": flagged / cases if cases else None,
+            "by_check": dict(sorted(by_check.items())),
+            "with_marker": rate[True], "without_marker": rate[False],
             "flagged_with_marker": counts[True][0], "cases_with_marker": counts[True][1],
             "flagged_without_marker": counts[False][0], "cases_without_marker": counts[False][1]}
 
@@ -41,7 +53,8 @@ def simulated_reviews(ledger: Ledger, draw_body: dict[str, Any], truth: dict[str
     from casefile.review import record_review
 
     reader = "demo-reader (simulated)"
-    done = {r["case_id"] for r in ledger.rows("reviews") if r["reader"] == reader}
+    done = {r["case_id"] for r in ledger.rows("reviews")
+            if r["reader"] == reader and r["draw_id"] == draw_body["draw_id"]}
     n = 0
     for member in draw_body["members"]:
         if member["case_id"] in done:  # running the demo again adds no second copy of a review
@@ -49,7 +62,7 @@ def simulated_reviews(ledger: Ledger, draw_body: dict[str, Any], truth: dict[str
         case = ledger.case(member["case_id"]).entry.body
         true_label = truth[case["input"]["file_name"]]["label"]
         verdict = "agree" if case["result"]["label"] == true_label else "disagree"
-        record_review(ledger, member["case_id"], reader=reader, verdict=verdict,
+        record_review(ledger, member["case_id"], reader=reader, verdict=verdict, draw_id=draw_body["draw_id"],
                       label=true_label, note="simulated second read from the demo scenario's ground truth")
         n += 1
     return n
@@ -85,7 +98,8 @@ def run_demo(out_dir: str | os.PathLike[str], *, seed: int = 7, n_cases: int = 4
         results[name] = {"summary": summary, "rates": flag_rates(summary.outcomes, truth),
                          "model": loaded.card["name"]}
 
-    _say("4/6 drawing a second-read sample (risk plan: every flagged case plus a share of the rest) …")
+    _say("4/6 drawing a second-read sample (risk plan: every flagged case plus a simple random sample of the "
+         "rest, at least 5) …")
     d = draw(ledger, "risk", share=0.2, seed=seed)
     _say("    " + describe_draw(d.body).replace("\n", "\n    "))
     n_rev = simulated_reviews(ledger, d.body, truth)
@@ -112,11 +126,25 @@ def _pct(x: float | None) -> str:
     return "n/a" if x is None else f"{100 * x:.0f} %"
 
 
-def _first_sheet(result: dict[str, Any], status: str) -> str | None:
-    for o in result["summary"].outcomes:
-        if o.sheet and o.body and o.body["status"] == status:
-            return o.sheet
-    return next((o.sheet for o in result["summary"].outcomes if o.sheet), None)
+def _first_sheet(result: dict[str, Any], flagged_by: str | None) -> str | None:
+    """The first sheet of a case flagged by a failure of check ``flagged_by`` (else by a warning of it), or,
+    with None, of a case with no flag at all."""
+    done = [o for o in result["summary"].outcomes if o.sheet and o.body]
+    if flagged_by is None:
+        picks = [o for o in done if not o.body.get("flags")]
+    else:
+        said = [(o, {c["name"]: c["outcome"] for c in o.body["checks"]}.get(flagged_by)) for o in done
+                if flagged_by in o.body.get("flags", [])]
+        picks = [o for o, outcome in said if outcome == "fail"] + [o for o, _ in said]
+    chosen = picks or done
+    return chosen[0].sheet if chosen else None
+
+
+def flag_line(who: str, r: dict[str, Any], goal: str) -> str:
+    """One printed line: how many of a model's cases were flagged, against the goal, and by which checks."""
+    checks = ", ".join(f"{n} {k}" for n, k in r["by_check"].items()) or "none"
+    return (f"  {who}: {r['flagged']}/{r['cases']} cases flagged ({_pct(r['share_flagged'])}; goal {goal}); "
+            f"flagged by: {checks}")
 
 
 def _print_findings(out: Path, results: dict[str, Any], stats_text: str, seconds: float) -> None:
@@ -127,9 +155,12 @@ def _print_findings(out: Path, results: dict[str, Any], stats_text: str, seconds
     _say(f"  region-focus check flags it: {s['flagged_with_marker']}/{s['cases_with_marker']} cases with the "
          f"marker ({_pct(s['with_marker'])}), {s['flagged_without_marker']}/{s['cases_without_marker']} "
          f"without.")
-    _say(f"  The honest model is flagged in {h['flagged_with_marker']}/{h['cases_with_marker']} cases with the "
-         f"marker ({_pct(h['with_marker'])}) and {h['flagged_without_marker']}/{h['cases_without_marker']} "
-         "without.")
+    _say(f"  On the honest model region focus warns or fails in {h['flagged_with_marker']}/{h['cases_with_marker']} "
+         f"cases with the marker ({_pct(h['with_marker'])}) and {h['flagged_without_marker']}/"
+         f"{h['cases_without_marker']} without.")
+    _say("Flags (a check sent the case to a person; notes only inform)")
+    _say(flag_line("honest model  ", h, f"at most {_pct(FLAG_GOALS['honest'])}"))
+    _say(flag_line("shortcut model", s, f"at least {_pct(FLAG_GOALS['shortcut'])}"))
     _say("")
     _say("Second reads so far")
     _say("  " + stats_text.replace("\n", "\n  "))
@@ -140,8 +171,9 @@ def _print_findings(out: Path, results: dict[str, Any], stats_text: str, seconds
     _say(f"  seal        {out / 'seal.json'}   (signed; public key {out / 'seal.key.pub'})")
     _say(f"  scenario    {out / 'scenario'}   (inputs, models with their cards, truth.json)")
     _say("Open first")
-    _say(f"  {_first_sheet(results['shortcut'], 'fail')}   a shortcut-model case: see where it looked")
-    _say(f"  {_first_sheet(results['honest'], 'pass')}   the same job done honestly")
+    _say(f"  {_first_sheet(results['shortcut'], 'region_focus')}   a shortcut-model case flagged by region "
+         "focus: see where it looked")
+    _say(f"  {_first_sheet(results['honest'], None)}   the same job done honestly (no flag)")
     _say("")
     _say("Caution: " + CAUTION_TEXT)
     _say(f"(demo finished in {seconds:.0f} s)")

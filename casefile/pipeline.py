@@ -55,6 +55,8 @@ class RunSettings:
         patch = self.patch or max(2, round(side / 7))
         stride = self.stride or max(1, patch // 2)
         overrides = {**self.explain, "occlusion_patch": patch, "occlusion_stride": stride}
+        if "flag_policy" in loaded.card:  # the card's flags-or-notes choices, over the explain defaults
+            overrides["flag_policy"] = {**loaded.card["flag_policy"], **self.explain.get("flag_policy", {})}
         if self.fill is not None:
             overrides["occlusion_fill"] = self.fill
         return {

@@ -114,6 +114,8 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
         "maps": maps,
         "checks": exp["checks"],
         "status": exp["status"],
+        "flagged": exp["flagged"],
+        "flags": exp["flags"],
         "intended_use": loaded.card.get("intended_use", ""),
         "cautions": CAUTION_TEXT,
     }

@@ -1,4 +1,4 @@
-"""Commands for second reads: sample, review, stats."""
+"""Commands for second reads: sample, review, adjudicate, stats."""
 
 from __future__ import annotations
 
@@ -15,9 +15,11 @@ from casefile.cli.common import (
     print_entry,
     share,
 )
+from casefile.review.plans import DEFAULT_MINIMUM
 
-PLAN_HELP = ("random: simple random sample (needs --size); stratified: by label and/or status (needs --size); "
-             "risk: every flagged case plus a share of the rest, weighted estimate (needs --size or --share); "
+PLAN_HELP = ("random: simple random sample (needs --size); stratified: by label, status or flag (needs --size); "
+             "risk: every flagged case (a check sent it to a person) plus a simple random sample of the rest, at "
+             "least --minimum of them, weighted estimate (needs --size or --share); "
              "lot: ISO 2859-1 single sampling (needs --aql)")
 
 
@@ -25,7 +27,8 @@ def cmd_sample(args: argparse.Namespace) -> int:
     from casefile.review import describe_draw, draw
 
     entry = draw(open_ledger(args), args.plan, size=args.size, aql=args.aql, level=args.level, seed=args.seed,
-                 filters=case_filters(args), allocation=args.allocation, strata=args.strata, share=args.share)
+                 filters=case_filters(args), allocation=args.allocation, strata=args.strata, share=args.share,
+                 minimum=args.minimum)
     print_entry(args, entry, describe_draw(entry.body))
     return 0
 
@@ -41,6 +44,8 @@ def _sample_usage(args: argparse.Namespace) -> str | None:
         return f"--aql goes with --plan lot, not --plan {args.plan}"
     if args.plan == "lot" and args.size is not None:
         return "--plan lot takes its sample size from ISO 2859-1 (--aql, --level); leave out --size"
+    if args.plan != "risk" and args.minimum != DEFAULT_MINIMUM:
+        return f"--minimum goes with --plan risk, not --plan {args.plan}"
     return None
 
 
@@ -48,8 +53,21 @@ def cmd_review(args: argparse.Namespace) -> int:
     from casefile.review import record_review
 
     entry = record_review(open_ledger(args), args.case_id, reader=args.reader, verdict=args.verdict,
-                          label=args.label, note=args.note)
-    print_entry(args, entry, f"review recorded as seq {entry.seq} ({entry.hash[:16]}…)")
+                          label=args.label, note=args.note, amends=args.amends, draw_id=args.draw,
+                          new_label=args.new_label)
+    draw_id = entry.body.get("draw_id")
+    print_entry(args, entry, f"review recorded as seq {entry.seq} ({entry.hash[:16]}…)"
+                             + (f" for draw {draw_id}" if draw_id else ""))
+    return 0
+
+
+def cmd_adjudicate(args: argparse.Namespace) -> int:
+    from casefile.review import record_adjudication
+
+    entry = record_adjudication(open_ledger(args), args.case_id, adjudicator=args.by, label=args.label,
+                                reason=args.reason, new_label=args.new_label, draw_id=args.draw)
+    print_entry(args, entry, f"adjudication recorded as seq {entry.seq}: {entry.body['label']} "
+                             f"(readings {', '.join(map(str, entry.body['readings']))})")
     return 0
 
 
@@ -85,16 +103,36 @@ def register(sub: argparse._SubParsersAction) -> None:
                     help="seed; the same seed redraws the same list")
     sp.add_argument("--allocation", choices=["proportional", "equal"], default="proportional",
                     help="stratified plan: sample in proportion to each stratum, or the same number from each")
-    sp.add_argument("--strata", choices=["label", "status", "label+status"], default="label",
+    sp.add_argument("--strata", choices=["label", "status", "label+status", "flagged"], default="label",
                     help="stratified plan: what defines a stratum")
     sp.add_argument("--share", type=share, metavar="P", help="risk plan: share of unflagged cases to draw")
+    sp.add_argument("--minimum", type=positive_int, default=DEFAULT_MINIMUM, metavar="N",
+                    help=f"risk plan: draw at least N unflagged cases, or all of them (default {DEFAULT_MINIMUM}); "
+                         "fewer reviewed than N gives bounds, not an estimate")
     add_case_filters(sp, "population filter")
 
-    sp = command(sub, "review", cmd_review, "record a reader's verdict on a case")
+    sp = command(sub, "review", cmd_review, "record a reader's verdict on a case, for one draw",
+                 epilog="A reader reads a case once per draw; to correct a reading, pass --amends SEQ "
+                        "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`).")
     sp.add_argument("case_id", metavar="CASE_ID")
     sp.add_argument("--reader", required=True, metavar="ID")
     sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
-    sp.add_argument("--label", metavar="L", help="the reader's label")
+    sp.add_argument("--label", metavar="L", help="the reader's label; one of the model's labels unless --new-label")
+    sp.add_argument("--new-label", action="store_true", help="the label is not one the model knows; recorded as such")
     sp.add_argument("--note", metavar="TEXT")
+    sp.add_argument("--amends", type=positive_int, metavar="SEQ", help="this corrects the reader's reading SEQ")
+    sp.add_argument("--draw", metavar="DRAW_ID",
+                    help="the draw this reading is for (default: the latest draw holding the case)")
 
-    command(sub, "stats", cmd_stats, "disagreement rates with intervals, kappa, confusion tables, lot decisions")
+    sp = command(sub, "adjudicate", cmd_adjudicate, "record a decision on a case where second readers disagree "
+                 "with each other (refused when they do not)")
+    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("--by", required=True, metavar="ID", help="who decides (not one of the readers in conflict)")
+    sp.add_argument("--label", required=True, metavar="L",
+                    help="the label decided; one of the model's labels unless --new-label")
+    sp.add_argument("--new-label", action="store_true", help="the label is not one the model knows; recorded as such")
+    sp.add_argument("--reason", required=True, metavar="TEXT", help="why this label was decided")
+    sp.add_argument("--draw", metavar="DRAW_ID", help="judge the readings of this draw (default: each reader's latest)")
+
+    command(sub, "stats", cmd_stats, "disagreement rates with intervals, kappa (model vs readers, reader pairs, "
+            "Fleiss' for three or more), confusion tables, lot decisions; each figure names its n")

@@ -31,9 +31,37 @@ Default thresholds live in :data:`CHECK_DEFAULTS`; the reasons for them:
   region; below 0.6 most of the evidence lies elsewhere. Read it with the region's size in mind: a
   map spread evenly gives a share equal to the region's share of the image. (The share is the
   "energy-based pointing game" measure of Wang et al. 2020, from memory.)
-- ``confidence_warn`` 0.6 / ``confidence_margin`` 0.1: a top-class probability below 0.6, or within
-  0.1 of the runner-up, is a case where the model is close to undecided; such cases deserve a
-  second read (common practice in triage work-lists). This check only warns.
+- ``confidence_warn`` 0.6 / ``confidence_margin`` 0.1: a top-class probability below 0.6 warns (the
+  model is unsure but still has a clear leader); a runner-up within 0.1 of the top class fails: the
+  model cannot tell its two leading labels apart, so the label on record is close to a coin toss
+  between them and a person must decide (both values common practice in triage work-lists).
+
+Flags and notes (:data:`casefile.flags.DEFAULT_FLAG_POLICY`). A *flag* sends the case to a person; a
+*note* only informs. A flag must be rare on sound work and near-certain on the failures it exists for,
+so each check is classed by what its outcome says about the case, and the classes were measured on the
+demo (``benchmarks/bench_flags.py`` prints the rates over several scenario seeds):
+
+- ``numerical`` flags on fail: a NaN or infinity means no number on the record can be trusted.
+- ``confidence`` flags on fail, a warn is a note: a model that cannot tell its two leading labels
+  apart has given no usable answer, and a triage work-list sends such cases to a reader (common
+  practice); a top probability below 0.6 with a clear leader informs. On the demo the fail catches
+  the honest model's one wrong answer and the shortcut model's cases without the marker, where it is
+  lost; flagging every warn as well would send 18 to 22 % of the honest cases on other scenario seeds.
+- ``randomisation`` flags on fail, a warn is a note: a failed cascade means the map does not depend on
+  what the model learned, so the map, and the region-focus check computed from it, cannot be read at
+  all; the warn band (0.5 to 0.7) is a moderate correlation, worth a look but no verdict.
+- ``region_focus`` flags on warn: it is the check for shortcut learning (a model reading a marker,
+  ruler or the border), the failure a second read exists to catch; on the demo's shortcut model a
+  third of the cases only warn, so a fail-only rule would miss them.
+- ``deletion`` is a note: covering pixels makes pictures the model never saw, so the drop measures the
+  model's response to the fill as well as the map's fidelity (Hooker et al. 2019, from memory); on the
+  demo's honest model its value spreads from -2 to +33 log-odds and it fails one case in ten, which
+  says more about the test's noise on one picture than about the case.
+- ``method_agreement`` is a note: Grad-CAM and occlusion measure different things and often disagree on
+  sound models (it warned on about half of the honest demo cases).
+
+A model card may override any of these (``"flag_policy": {"confidence": "note"}``); the policy used is
+stored in the case settings (``explain.flag_policy``).
 """
 
 from __future__ import annotations
@@ -50,12 +78,11 @@ import torch
 from torch import nn
 
 from casefile.errors import ExplainError
+from casefile.flags import Outcome
 
 from ._common import batched_logits, model_left_as_found
 from .occlusion import fill_image
 from .similarity import area_resample, spearman
-
-OUTCOMES = ("pass", "warn", "fail", "not-run")
 
 CHECK_DEFAULTS: dict[str, Any] = {
     "randomisation_pass": 0.5,
@@ -78,20 +105,23 @@ MapFn = Callable[[nn.Module, torch.Tensor, int], np.ndarray]
 
 @dataclass
 class Check:
-    """Outcome of one sanity check."""
+    """Outcome of one sanity check; ``flags`` is set by the flag policy (None until it is applied)."""
 
     name: str
     value: float | None
     threshold: float | None
-    outcome: str
+    outcome: Outcome
     meaning: str
+    flags: bool | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        """Plain data; a non-finite value becomes None."""
+        """Plain data; a non-finite value becomes None; ``flags`` only once the policy has decided it."""
         d = asdict(self)
         for key in ("value", "threshold"):
             if d[key] is not None and not math.isfinite(d[key]):
                 d[key] = None
+        if d["flags"] is None:
+            del d["flags"]
         return d
 
 
@@ -105,7 +135,8 @@ def _finite(a: np.ndarray | torch.Tensor) -> bool:
     return bool(np.all(np.isfinite(np.asarray(a, dtype=np.float64))))
 
 
-def _not_run(name: str, threshold: float | None, why: str) -> Check:
+def not_run(name: str, threshold: float | None, why: str) -> Check:
+    """A check that could not run, saying why in its meaning line."""
     return Check(name, None, threshold, "not-run", why)
 
 
@@ -174,9 +205,9 @@ def randomisation(
     if original is None:
         original = map_fn(module, x, target)
     if not _finite(original):
-        return _not_run(name, lo, "the original map is not finite, so it cannot be compared")
+        return not_run(name, lo, "the original map is not finite, so it cannot be compared")
     if spearman(original, original) is None:
-        return _not_run(
+        return not_run(
             name, lo, "the original map is flat (all values equal); rank correlation is undefined"
         )
     with _scratch_model(module) as twin:
@@ -184,7 +215,7 @@ def randomisation(
         depth = int(_get(settings, "randomisation_layers")) or len(layers)
         layers = layers[:depth]
         if not layers:
-            return _not_run(name, lo, "the model has no parameters to re-initialise")
+            return not_run(name, lo, "the model has no parameters to re-initialise")
         gen = torch.Generator().manual_seed(int(_get(settings, "randomisation_seed")))
         steps: list[float] = []
         with model_left_as_found(twin):
@@ -217,10 +248,10 @@ def method_agreement(
     name = "method_agreement"
     lo = float(_get(settings, "agreement_pass"))
     if not (_finite(map_a) and _finite(map_b)):
-        return _not_run(name, lo, "a map is not finite, so the methods cannot be compared")
+        return not_run(name, lo, "a map is not finite, so the methods cannot be compared")
     rho = spearman(area_resample(map_a, grid), area_resample(map_b, grid))
     if rho is None:
-        return _not_run(
+        return not_run(
             name, lo, "a map is flat (all values equal) on the common grid; rank correlation is undefined"
         )
     if rho >= lo:
@@ -263,9 +294,9 @@ def deletion(
     if attribution.shape != (h, w):
         raise ExplainError(f"deletion: map shape {attribution.shape} does not match the input {h}x{w}")
     if not _finite(attribution):
-        return _not_run(name, margin, "the map is not finite, so its top pixels are undefined")
+        return not_run(name, margin, "the map is not finite, so its top pixels are undefined")
     if float(np.max(attribution)) == float(np.min(attribution)):
-        return _not_run(name, margin, "the map is flat (all values equal), so it singles out no pixels")
+        return not_run(name, margin, "the map is flat (all values equal), so it singles out no pixels")
     k = max(1, int(round(float(_get(settings, "deletion_fraction")) * h * w)))
     top = np.zeros(h * w, dtype=bool)
     top[np.argsort(-attribution.ravel(), kind="stable")[:k]] = True
@@ -279,7 +310,7 @@ def deletion(
         xs = torch.where(m, filler, x)
         z = batched_logits(module, torch.cat([x, xs]), len(masks) + 1)[0].to(torch.float64)
     if not _finite(z):
-        return _not_run(name, margin, "the model gave non-finite scores on the covered images")
+        return not_run(name, margin, "the model gave non-finite scores on the covered images")
     others = torch.cat([z[:, :target], z[:, target + 1 :]], dim=1)
     odds = (z[:, target] - torch.logsumexp(others, dim=1)).numpy()
     probs = torch.softmax(z, dim=1)[:, target].numpy()
@@ -301,18 +332,18 @@ def region_focus(
     name = "region_focus"
     lo, hi = float(_get(settings, "focus_fail")), float(_get(settings, "focus_pass"))
     if roi is None:
-        return _not_run(name, hi, "no region of interest was given")
+        return not_run(name, hi, "no region of interest was given")
     roi = np.asarray(roi)
     if roi.shape != attribution.shape:
         raise ExplainError(f"roi mask: shape {roi.shape} does not match the map {attribution.shape}")
     if not roi.any():
-        return _not_run(name, hi, "the region of interest is empty")
+        return not_run(name, hi, "the region of interest is empty")
     if not _finite(attribution):
-        return _not_run(name, hi, "the map is not finite")
+        return not_run(name, hi, "the map is not finite")
     pos = np.maximum(np.asarray(attribution, dtype=np.float64), 0.0)
     total = float(pos.sum())
     if total <= 0.0:
-        return _not_run(name, hi, "the map has no positive attribution to place")
+        return not_run(name, hi, "the map has no positive attribution to place")
     share = float(pos[roi.astype(bool)].sum() / total)
     where = (
         f"{share:.0%} of the attribution lies inside the region of interest ({roi.mean():.0%} of the image)"
@@ -327,17 +358,21 @@ def region_focus(
 def confidence(
     probabilities: np.ndarray, label_index: int, *, settings: Mapping[str, Any] | None = None
 ) -> Check:
-    """Top-class probability against ``confidence_warn`` and its margin to the runner-up."""
+    """Top-class probability against ``confidence_warn`` (warn) and its margin to the runner-up against
+    ``confidence_margin`` (fail: the model cannot tell its two leading labels apart)."""
     name = "confidence"
     lo, gap = float(_get(settings, "confidence_warn")), float(_get(settings, "confidence_margin"))
     p = np.asarray(probabilities, dtype=np.float64).ravel()
     if not _finite(p):
-        return _not_run(name, lo, "the class probabilities are not finite")
+        return not_run(name, lo, "the class probabilities are not finite")
     top = float(p[label_index])
     second = float(np.max(np.delete(p, label_index))) if p.size > 1 else 0.0
     said = f"probability {top:.3f} for the explained class, {top - second:+.3f} over the next class"
-    outcome = "pass" if top >= lo and top - second >= gap else "warn"
-    return Check(name, top, lo, outcome, said)
+    if top - second < gap:
+        return Check(name, top, lo, "fail", f"{said}: the model cannot tell its two leading labels apart")
+    if top < lo:
+        return Check(name, top, lo, "warn", f"{said}: the model is unsure")
+    return Check(name, top, lo, "pass", said)
 
 
 def numerical(named: Mapping[str, np.ndarray | torch.Tensor]) -> Check:

@@ -21,6 +21,10 @@ Default settings (:data:`DEFAULT_SETTINGS`) and why:
   how far a map can be trusted, they are not a diagnosis or an inspection verdict. Decisions rest
   with qualified staff under local clinical, regulatory and inspection practice.
 - Check thresholds: see :mod:`casefile.explain.checks` (``CHECK_DEFAULTS``), where each is justified.
+- ``flag_policy``: which check outcomes send the case to a person (a flag) and which only inform (a
+  note), check name -> ``flag-on-warn`` / ``flag-on-fail`` / ``note``; a partial mapping (e.g. from a
+  model card) is laid over :data:`casefile.flags.DEFAULT_FLAG_POLICY`, whose reasons are in
+  :mod:`casefile.explain.checks`. The full policy used is kept in the settings.
 """
 
 from __future__ import annotations
@@ -37,6 +41,7 @@ import torch
 from torch import nn
 
 from casefile.errors import ExplainError
+from casefile.flags import DEFAULT_FLAG_POLICY, Outcome, flagging_checks, merged_policy, policy_problem
 
 from . import checks as ck
 from ._common import check_input, forward_logits, model_left_as_found, pick_target
@@ -56,6 +61,7 @@ DEFAULT_SETTINGS: dict[str, Any] = {
     "deletion_method": "gradcam",
     "deletion_fill": "same",
     "focus_method": "gradcam",
+    "flag_policy": dict(DEFAULT_FLAG_POLICY),
     **ck.CHECK_DEFAULTS,
 }
 
@@ -77,10 +83,18 @@ def _clean(value: Any) -> Any:
     return value
 
 
-def worst(outcomes: Sequence[str]) -> str:
+def worst(outcomes: Sequence[str]) -> Outcome:
     """fail > warn > pass; not-run counts only when every check was not run."""
     ranked = [o for o in outcomes if o in _RANK]
     return max(ranked, key=_RANK.__getitem__) if ranked else "not-run"
+
+
+def apply_flag_policy(found: Sequence[ck.Check], policy: Mapping[str, str]) -> list[str]:
+    """Set each check's ``flags`` by ``policy``; return the names of the checks that flag, in order."""
+    named = flagging_checks([{"name": c.name, "outcome": c.outcome} for c in found], policy)
+    for c in found:
+        c.flags = c.name in named
+    return named
 
 
 @dataclass
@@ -97,9 +111,15 @@ class Explanation:
     checks: list[ck.Check]
     settings: dict[str, Any]
     versions: dict[str, str]
-    status: str
+    status: Outcome
     target_source: str = "predicted"
     notes: list[str] = field(default_factory=list)
+    flags: list[str] = field(default_factory=list)
+
+    @property
+    def flagged(self) -> bool:
+        """True when at least one check's outcome sends this case to a person."""
+        return bool(self.flags)
 
     def map_bytes(self, method: str) -> bytes:
         """The raw map of ``method`` as float32 little-endian bytes (row-major [H, W])."""
@@ -132,6 +152,8 @@ class Explanation:
                 "settings": self.settings,
                 "versions": self.versions,
                 "status": self.status,
+                "flagged": self.flagged,
+                "flags": self.flags,
                 "notes": self.notes,
             }
         )
@@ -144,6 +166,10 @@ def full_settings(settings: Mapping[str, Any] | None) -> dict[str, Any]:
         if key not in DEFAULT_SETTINGS:
             raise ExplainError(f"settings: unknown key {key!r}; known keys: {', '.join(DEFAULT_SETTINGS)}")
         merged[key] = value
+    problem = policy_problem(merged["flag_policy"])
+    if problem:
+        raise ExplainError(f"settings: flag_policy: {problem}")
+    merged["flag_policy"] = merged_policy(merged["flag_policy"])
     return merged
 
 
@@ -237,12 +263,13 @@ def run(
         found.append(ck.method_agreement(maps["gradcam"], occ_result.logit, grid=grid, settings=s))
     else:
         found.append(
-            ck._not_run("method_agreement", s["agreement_pass"], "needs both Grad-CAM and occlusion maps")
+            ck.not_run("method_agreement", s["agreement_pass"], "needs both Grad-CAM and occlusion maps")
         )
     fill = s["occlusion_fill"] if s["deletion_fill"] == "same" else s["deletion_fill"]
     found.append(ck.deletion(module, x, t, maps[chosen("deletion_method")], fill=fill, settings=s))
     found.append(ck.region_focus(maps[chosen("focus_method")], roi, settings=s))
     logit_list = [float(v) for v in logits[0].tolist()]
+    flagged_by = apply_flag_policy(found, s["flag_policy"])
     return Explanation(
         scores={str(lab): float(p) for lab, p in zip(labels, probs, strict=True)},
         label_index=t,
@@ -261,4 +288,5 @@ def run(
         },
         status=worst([c.outcome for c in found]),
         target_source="predicted" if target is None else "given",
+        flags=flagged_by,
     )

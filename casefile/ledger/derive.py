@@ -6,6 +6,8 @@ import hashlib
 from collections.abc import Callable
 from typing import Any
 
+from casefile.flags import case_flagged, flagging_checks
+
 Rows = list[tuple[str, dict[str, Any]]]
 
 
@@ -13,6 +15,14 @@ def run_key(file_sha256: str, frame: int | None, model_digest: str, settings_dig
     """The identity of one run: the same input, frame, model and settings never make two cases."""
     text = f"{file_sha256}|{'' if frame is None else frame}|{model_digest}|{settings_digest}"
     return hashlib.sha256(text.encode("ascii")).hexdigest()
+
+
+def _checks(seq: int, b: dict[str, Any]) -> Rows:
+    """One row per check; a record from an older release, without ``flags``, gets the default rule."""
+    checks = b.get("checks") or []
+    flagging = set(flagging_checks(checks))
+    return [("case_checks", {"seq": seq, "case_id": b["case_id"], "name": c["name"], "outcome": c["outcome"],
+                             "flags": 1 if c["name"] in flagging else 0}) for c in checks]
 
 
 def _case(seq: int, b: dict[str, Any]) -> Rows:
@@ -30,7 +40,8 @@ def _case(seq: int, b: dict[str, Any]) -> Rows:
         "file_name": inp["file_name"],
         "file_sha256": inp["file_sha256"],
         "run_key": run_key(inp["file_sha256"], inp.get("frame"), model["digest"], b["settings_digest"]),
-    })]
+        "flagged": 1 if case_flagged(b) else 0,
+    }), *_checks(seq, b)]
 
 
 def _failed(seq: int, b: dict[str, Any]) -> Rows:
@@ -48,6 +59,11 @@ def _review(seq: int, b: dict[str, Any]) -> Rows:
                          "draw_id": b.get("draw_id")})]
 
 
+def _adjudication(seq: int, b: dict[str, Any]) -> Rows:
+    return [("adjudications", {"seq": seq, "case_id": b["case_id"], "adjudicator": b["adjudicator"],
+                               "label": b["label"], "draw_id": b.get("draw_id")})]
+
+
 def _draw(seq: int, b: dict[str, Any]) -> Rows:
     return [("draws", {"seq": seq, "draw_id": b["draw_id"], "plan": b["plan"],
                        "population_size": b["population_size"], "sample_size": len(b["members"])})]
@@ -63,6 +79,7 @@ PROJECTORS: dict[str, Callable[[int, dict[str, Any]], Rows]] = {
     "failed": _failed,
     "amendment": _amendment,
     "review": _review,
+    "adjudication": _adjudication,
     "draw": _draw,
     "seal": _seal,
 }

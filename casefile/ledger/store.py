@@ -145,6 +145,15 @@ class Store:
             for ddl in t.SQLITE_TRIGGERS:
                 conn.exec_driver_sql(ddl)
 
+    def outdated_tables(self) -> list[str]:
+        """Query-table columns this release derives that the database lacks (a ledger made by an older
+        release, before ``rebuild``), as ``table.column``; empty when the tables are current."""
+        have: dict[str, set[str]] = {}
+        with self.engine.connect() as conn:
+            for tb in t.DERIVED_TABLES:
+                have[tb.name] = {r[1] for r in conn.exec_driver_sql(f"PRAGMA table_info({tb.name})")}
+        return [f"{tb.name}.{c.name}" for tb in t.DERIVED_TABLES for c in tb.columns if c.name not in have[tb.name]]
+
     def close(self) -> None:
         self.engine.dispose()
 
@@ -244,7 +253,8 @@ class Store:
         """Recompute every query table from the entries and record a ``rebuild`` entry saying so.
 
         This is the only path that writes the query tables outside an append. In one write transaction
-        it drops their guard triggers, empties and refills them, re-creates the triggers and appends the
+        it drops their guard triggers, re-creates and refills the tables (so a ledger written by an older
+        release gains any column or table added since), re-creates the triggers and appends the
         ``rebuild`` entry (reason, entries read, rows written per table): the rebuild is all done and
         recorded, or none of it is. The reason is required and is checked before anything is written.
         """
@@ -254,8 +264,9 @@ class Store:
         def work(conn: Connection) -> Entry:
             for name in t.DERIVED_TRIGGER_NAMES:
                 conn.exec_driver_sql(f"DROP TRIGGER IF EXISTS {name}")
-            for tb in t.DERIVED_TABLES:
-                conn.execute(tb.delete())
+            for tb in t.DERIVED_TABLES:  # re-created, so a ledger made by an older release gains new columns
+                tb.drop(conn, checkfirst=True)
+                tb.create(conn)
             counts = {tb.name: 0 for tb in t.DERIVED_TABLES}
             n = 0
             for e in self.entries(conn=conn):

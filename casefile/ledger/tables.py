@@ -51,10 +51,25 @@ cases = Table(
     Column("file_name", Text, nullable=False),
     Column("file_sha256", String(64), nullable=False),
     Column("run_key", String(64), nullable=False, unique=True),
+    # 1 when the case was sent to a person by a flag (casefile.flags); older records: the default rule
+    Column("flagged", Integer, nullable=False),
     Index("ix_cases_model", "model_name", "model_version"),
     Index("ix_cases_label", "label"),
     Index("ix_cases_status", "status"),
     Index("ix_cases_recorded_at", "recorded_at"),
+)
+
+# One row per check of each case: what `audit --check NAME=OUTCOME` and the audit columns read.
+case_checks = Table(
+    "case_checks",
+    metadata,
+    Column("seq", Integer, ForeignKey("entries.seq"), nullable=False),
+    Column("case_id", String(64), nullable=False),
+    Column("name", String(64), nullable=False),
+    Column("outcome", String(16), nullable=False),
+    Column("flags", Integer, nullable=False),
+    Index("ix_case_checks_seq", "seq"),
+    Index("ix_case_checks_outcome", "name", "outcome"),
 )
 
 failures = Table(
@@ -89,6 +104,18 @@ reviews = Table(
     Index("ix_reviews_case", "case_id"),
 )
 
+# A third reader's decision on a case where readers disagree with each other.
+adjudications = Table(
+    "adjudications",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("case_id", String(64), nullable=False),
+    Column("adjudicator", Text, nullable=False),
+    Column("label", Text, nullable=False),
+    Column("draw_id", String(64)),
+    Index("ix_adjudications_case", "case_id"),
+)
+
 draws = Table(
     "draws",
     metadata,
@@ -108,7 +135,7 @@ seals = Table(
     Column("signed", Integer, nullable=False),
 )
 
-DERIVED_TABLES = (entry_blobs, cases, failures, amendments, reviews, draws, seals)
+DERIVED_TABLES = (entry_blobs, cases, case_checks, failures, amendments, reviews, adjudications, draws, seals)
 
 # Append-only, enforced by SQLite itself: an UPDATE or DELETE on entries or blobs aborts, and an
 # INSERT must extend the chain at its head (next seq, prev_hash = hash of the head entry).

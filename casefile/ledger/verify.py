@@ -214,6 +214,10 @@ def verify(store: Store, seal_file: SealFile | None = None, trusted: TrustedKeys
         problem = seal_file.problem()  # the file on its own, before the ledger is read
         if problem:
             return report.fail(None, f"{seal_file.source}: {problem}")
+    outdated = store.outdated_tables()
+    if outdated:
+        return report.fail(None, f"the query tables were made by an older release and lack {', '.join(outdated)}; "
+                                 "run `casefile rebuild --reason TEXT` to derive them again")
     bad_blobs = scan_blobs(store, report)
     walk, seals = ChainWalk(strict), SealChecker(trusted, seal_file)
     with store.engine.connect() as conn:

@@ -17,10 +17,16 @@ The exact algorithm, so that anyone can redraw a sample by hand or in another la
        * ``equal``: ``n // H`` each, the remainder one each to strata in sorted name order; a stratum
          never takes more than ``N_h``; what it cannot take is handed on, one unit at a time, to the
          other strata with room, in sorted name order;
-   - ``risk``: every flagged case (status ``warn`` or ``fail``) with probability 1; every other case
-     independently when ``u_i < p`` (Bernoulli sampling with probability ``p = share``), so each
-     member carries inclusion probability ``p`` and Horvitz-Thompson weights stay unbiased. When a
-     ``size`` is given instead of a share, ``p = min(1, size / N_unflagged)``;
+   - ``risk``: two strata. Every flagged case (a check sent it to a person: the case's ``flagged``,
+     see ``casefile.flags``; not merely any warn) is drawn, inclusion probability 1. From the
+     ``N_u`` unflagged cases, the first ``n_u`` in key order (simple random sampling without
+     replacement), inclusion probability ``n_u / N_u``, where ``n_u = ceil(share * N_u)`` or ``size``
+     when a size is given instead, and never fewer than ``minimum`` (default 5) or all of them when
+     there are fewer: a stratum drawn with probability below 1 always gives the statistics enough
+     cases to bound its rate. The body records each stratum's size and how many were drawn.
+     Draws recorded by older releases (no ``minimum`` in their options) were Bernoulli draws: every
+     case with status ``warn``/``fail`` with probability 1, every other case when ``u_i < p``
+     (``p = share``, or ``min(1, size / N_other)``); ``redraw`` still follows that rule for them;
    - ``lot``: the whole population is the lot; ISO 2859-1 gives the sample size ``n`` (see
      ``casefile.review.lot``); the first ``n`` cases in key order, or all of them when ``n >= N``.
 4. Members are listed in ascending ``seq`` order.
@@ -29,17 +35,21 @@ The exact algorithm, so that anyone can redraw a sample by hand or in another la
 from __future__ import annotations
 
 import heapq
+import math
 import random
 from collections.abc import Iterable, Mapping
-from typing import Any
+from typing import Any, Literal
 
 from casefile.errors import ValidationError
 from casefile.review.lot import LEVELS, single_normal_plan
 
+Plan = Literal["random", "stratified", "risk", "lot"]
 PLANS = ("random", "stratified", "risk", "lot")
 ALLOCATIONS = ("proportional", "equal")
-STRATA = ("label", "status", "label+status")
-FLAGGED = ("warn", "fail")
+STRATA = ("label", "status", "label+status", "flagged")
+LEGACY_FLAGGED = ("warn", "fail")  # how draws by older releases chose their census stratum
+DEFAULT_MINIMUM = 5
+DEFAULT_SHARE = 0.1
 
 
 def _keys(population: list[Mapping[str, Any]], seed: int) -> list[float]:
@@ -68,7 +78,16 @@ def _stratum_of(row: Mapping[str, Any], by: str) -> str:
         return str(row["label"])
     if by == "status":
         return str(row["status"])
+    if by == "flagged":
+        return "flagged" if is_flagged(row) else "unflagged"
     return f"{row['label']}|{row['status']}"
+
+
+def is_flagged(row: Mapping[str, Any]) -> bool:
+    """Whether a population row (a ``cases`` query-table row) was sent to a person by a flag."""
+    if "flagged" not in row:
+        raise ValidationError(f"case {row.get('case_id', '?')}: the population row has no 'flagged' field")
+    return bool(row["flagged"])
 
 
 def largest_remainder(n: int, sizes: Mapping[str, int]) -> dict[str, int]:
@@ -115,7 +134,7 @@ def _random(pop: list[Mapping[str, Any]], keys: list[float], size: int | None) -
 
 
 def _stratified(pop: list[Mapping[str, Any]], order: list[int], size: int | None, allocation: str,
-                by: str) -> list[dict[str, Any]]:
+                by: str) -> tuple[list[dict[str, Any]], dict[str, dict[str, int]]]:
     n = min(_check_size("stratified", size), len(pop))
     if allocation not in ALLOCATIONS:
         raise ValidationError(f"stratified plan: allocation {allocation!r} is not one of {', '.join(ALLOCATIONS)}")
@@ -133,35 +152,70 @@ def _stratified(pop: list[Mapping[str, Any]], order: list[int], size: int | None
         if taken[h] < alloc[h]:
             taken[h] += 1
             members.append(_member(pop[i], alloc[h] / sizes[h], h))
-    return members
+    return members, {h: {"size": sizes[h], "drawn": alloc[h]} for h in sorted(sizes)}
+
+
+def _check_share(share: float) -> float:
+    if isinstance(share, bool) or not isinstance(share, int | float) or not 0 < share <= 1:
+        raise ValidationError(f"risk plan: share must be a number in (0, 1] (got {share!r})")
+    return float(share)
 
 
 def risk_share(pop: list[Mapping[str, Any]], size: int | None, share: float | None) -> float:
-    """The Bernoulli probability for unflagged cases: ``share``, else ``size / N_unflagged``, else 0.1."""
+    """Older releases' Bernoulli probability for unflagged cases: ``share``, else ``size / N_other``, else 0.1."""
     if share is not None:
-        if isinstance(share, bool) or not isinstance(share, int | float) or not 0 < share <= 1:
-            raise ValidationError(f"risk plan: share must be a number in (0, 1] (got {share!r})")
-        return float(share)
+        return _check_share(share)
     if size is not None:
-        rest = sum(1 for row in pop if row["status"] not in FLAGGED)
+        rest = sum(1 for row in pop if row["status"] not in LEGACY_FLAGGED)
         return 1.0 if rest == 0 else min(1.0, _check_size("risk", size) / rest)
-    return 0.1
+    return DEFAULT_SHARE
 
 
-def _risk(pop: list[Mapping[str, Any]], keys: list[float], p: float) -> list[dict[str, Any]]:
+def _legacy_risk(pop: list[Mapping[str, Any]], keys: list[float], p: float) -> list[dict[str, Any]]:
     members = []
     for i, row in enumerate(pop):
-        if row["status"] in FLAGGED:
+        if row["status"] in LEGACY_FLAGGED:
             members.append(_member(row, 1.0, "flagged"))
         elif keys[i] < p:
             members.append(_member(row, p, "other"))
     return members
 
 
+def unflagged_quota(n_unflagged: int, size: int | None, share: float | None, minimum: int) -> int:
+    """How many unflagged cases the risk plan draws: ``size``, else ``ceil(share * N_u)``, at least
+    ``minimum``, at most all of them."""
+    if isinstance(minimum, bool) or not isinstance(minimum, int) or minimum < 1:
+        raise ValidationError(f"risk plan: minimum must be a whole number of at least 1 (got {minimum!r})")
+    if share is not None:
+        wanted = math.ceil(_check_share(share) * n_unflagged - 1e-9)
+    elif size is not None:
+        wanted = _check_size("risk", size)
+    else:
+        wanted = math.ceil(DEFAULT_SHARE * n_unflagged - 1e-9)
+    return min(n_unflagged, max(minimum, wanted))
+
+
+def _risk(pop: list[Mapping[str, Any]], keys: list[float], size: int | None, share: float | None,
+          minimum: int) -> tuple[list[dict[str, Any]], dict[str, dict[str, int]]]:
+    flagged = [i for i, row in enumerate(pop) if is_flagged(row)]
+    rest = [i for i, row in enumerate(pop) if not is_flagged(row)]
+    n_u = unflagged_quota(len(rest), size, share, minimum)
+    members = [_member(pop[i], 1.0, "flagged") for i in flagged]
+    if n_u:
+        sub = [pop[i] for i in rest]
+        p = n_u / len(rest)
+        members += [_member(sub[j], p, "unflagged") for j in _order(sub, [keys[i] for i in rest], n_u)]
+    return members, {"flagged": {"size": len(flagged), "drawn": len(flagged)},
+                     "unflagged": {"size": len(rest), "drawn": n_u}}
+
+
 def draw_plan(plan: str, population: Iterable[Mapping[str, Any]], *, seed: int = 0, size: int | None = None,
               aql: float | None = None, level: str = "II", allocation: str = "proportional",
-              strata: str = "label", share: float | None = None) -> dict[str, Any]:
-    """Draw a sample; return plain data: plan, seed, options, population_size, members, lot."""
+              strata: str = "label", share: float | None = None,
+              minimum: int | None = DEFAULT_MINIMUM) -> dict[str, Any]:
+    """Draw a sample; return plain data: plan, seed, options, population_size, members, strata, lot.
+
+    ``minimum`` (risk plan) of None redraws the way older releases drew (Bernoulli, by status)."""
     if plan not in PLANS:
         raise ValidationError(f"sampling plan {plan!r} is not one of {', '.join(PLANS)}")
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
@@ -175,17 +229,25 @@ def draw_plan(plan: str, population: Iterable[Mapping[str, Any]], *, seed: int =
     keys = _keys(pop, seed)
     options: dict[str, Any] = {}
     lot = None
+    sizes: dict[str, dict[str, int]] | None = None
     if plan == "random":
         members = _random(pop, keys, size)
         options["size"] = size
     elif plan == "stratified":
-        members = _stratified(pop, _order(pop, keys), size, allocation, strata)
+        members, sizes = _stratified(pop, _order(pop, keys), size, allocation, strata)
         options.update(size=size, allocation=allocation, strata=strata)
-    elif plan == "risk":
+    elif plan == "risk" and minimum is None:
         p = risk_share(pop, size, share)
-        members = _risk(pop, keys, p)
+        members = _legacy_risk(pop, keys, p)
         options["share"] = p
         if size is not None and share is None:
+            options["size"] = size
+    elif plan == "risk":
+        members, sizes = _risk(pop, keys, size, share, minimum)
+        options["minimum"] = minimum
+        if share is not None or size is None:
+            options["share"] = DEFAULT_SHARE if share is None else float(share)
+        else:
             options["size"] = size
     else:
         if aql is None:
@@ -199,4 +261,4 @@ def draw_plan(plan: str, population: Iterable[Mapping[str, Any]], *, seed: int =
         options.update(aql=lot["aql"], level=level)
     members.sort(key=lambda m: m["seq"])
     return {"plan": plan, "seed": seed, "options": options, "population_size": len(pop),
-            "members": members, "lot": lot}
+            "members": members, "strata": sizes, "lot": lot}

@@ -1,21 +1,27 @@
 """Second-read statistics from the ledger: disagreement rates, agreement (kappa), lot decisions, pending.
 
-Definitions used throughout:
-- a reader's current verdict on a case is their latest review of it;
-- a case is reviewed when at least one reader has a current verdict; it counts as a disagreement when
-  any current verdict is ``disagree`` (``unsure`` is counted apart and is not a disagreement);
+Definitions used throughout (which reading counts where: ``casefile.review.readings``):
+- a draw's figures count only the readings recorded against that draw; its members read only for other
+  draws (or none) are pending for it and listed apart (``read_elsewhere``). The overall figures and
+  reader agreement take each reader's latest reading of a case, for whichever draw;
+- a case is reviewed when at least one reader has a current reading; it counts as a disagreement when
+  any current reading is ``disagree`` (``unsure`` is counted apart and is not a disagreement);
 - the reader's label is the model's label for ``agree``, the given label for ``disagree``; an
   ``unsure`` verdict, or a ``disagree`` without a label, has no reader label and stays out of the
   confusion table and of kappa;
 - per draw, the disagreement rate among reviewed members comes with a 95 % Wilson score interval. For
-  ``risk`` and ``stratified`` draws (and any draw whose members carry unequal inclusion probabilities) the
-  population rate is estimated by Horvitz-Thompson with N known: (1/N) sum y_i / pi_i, with the
-  Poisson-sampling variance (1/N^2) sum (1 - pi_i) / pi_i^2 y_i^2 and a normal 95 % interval
-  (estimate +- 1.96 SE, clipped to [0, 1]). It is given only once every member is reviewed, because
-  unread members would bias it; until then it is null with the reason. Strata that drew no member are
-  not represented by the estimate;
+  ``risk`` and ``stratified`` draws (and any draw whose members carry unequal inclusion probabilities)
+  the population rate is estimated stratum by stratum (``casefile.review.weighted``): only once every
+  member is read for the draw, and with no point estimate, only bounds and a warning, while a stratum
+  drawn with probability below 1 has fewer reviewed cases than the draw's minimum;
+- Cohen's kappa (Cohen 1960) compares the model's labels with the readers' (n = readings) and each
+  pair of readers on the cases both read (n = cases); Fleiss' kappa (Fleiss 1971) compares three or
+  more readers on the cases every one of them labelled (n = cases);
+- readers disagree with each other on a case when their current labels differ (an ``adjudication``
+  may then be recorded); the summary lists those cases and which are adjudicated;
 - for ``lot`` draws a "defective" is a member with a disagreement; the lot is accepted when
   defectives <= Ac, rejected when defectives >= Re (ISO 2859-1), pending otherwise.
+Every figure names its n and what n counts (``n_of``: cases, readings, or cases read by a pair).
 These figures describe agreement between the model and readers; they do not say which is right, and
 decisions rest with qualified staff under local clinical, regulatory and inspection practice.
 """
@@ -28,63 +34,62 @@ from typing import Any
 
 from casefile.cautions import AGREEMENT_CAUTION
 from casefile.ledger import Ledger
-from casefile.review.agreement import cohen_kappa, confusion_table, horvitz_thompson, wilson_interval
+from casefile.review.agreement import cohen_kappa, confusion_table, fleiss_kappa, wilson_interval
 from casefile.review.lot import lot_decision
-from casefile.review.store import current_reviews
+from casefile.review.readings import (
+    current_readings,
+    for_draw,
+    latest_by_reader,
+    reader_label,
+    readers_disagree,
+)
+from casefile.review.text import describe_draw, format_text
+from casefile.review.weighted import population_rate
 
-Z95 = 1.959963984540054  # standard normal 0.975 quantile
+Readers = Mapping[str, Mapping[str, Any]]  # {reader: review body} for one case
 
-
-def reader_label(review: Mapping[str, Any], model_label: str) -> str | None:
-    """The label a reader gave (see the module docstring); None when unknown."""
-    if review["verdict"] == "agree":
-        return model_label
-    if review["verdict"] == "disagree":
-        return review.get("label")
-    return None
+READ_RULE = ("a draw counts only the readings recorded for it; readings of its members for other draws "
+             "are listed apart")
 
 
 def _rate(k: int, n: int) -> dict[str, Any]:
+    out: dict[str, Any] = {"disagreements": k, "reviewed": n, "n_of": "cases"}
     if n == 0:
-        return {"disagreements": k, "reviewed": n, "rate": None, "wilson_95": None}
+        return {**out, "rate": None, "wilson_95": None}
     low, high = wilson_interval(k, n)
-    return {"disagreements": k, "reviewed": n, "rate": k / n, "wilson_95": [low, high]}
+    return {**out, "rate": k / n, "wilson_95": [low, high]}
 
 
-def _disagrees(readers: Mapping[str, Mapping[str, Any]]) -> bool:
+def _disagrees(readers: Readers) -> bool:
     return any(r["verdict"] == "disagree" for r in readers.values())
 
 
-def summarise_draw(body: Mapping[str, Any], current: Mapping[str, Mapping[str, Any]]) -> dict[str, Any]:
-    """Statistics for one draw body, given current reviews {case_id: {reader: review body}}."""
+def summarise_draw(body: Mapping[str, Any], readings: Mapping[str, Readers],
+                   elsewhere: set[str] | frozenset[str] = frozenset()) -> dict[str, Any]:
+    """Statistics for one draw body from the readings recorded against it ({case_id: {reader: body}});
+    ``elsewhere`` names the cases read for some other draw or none."""
     members = body["members"]
-    reviewed = [m for m in members if current.get(m["case_id"])]
-    pending = [m["case_id"] for m in members if not current.get(m["case_id"])]
-    ys = [1 if _disagrees(current[m["case_id"]]) else 0 for m in reviewed]
-    unsure = sum(1 for m in reviewed if any(r["verdict"] == "unsure" for r in current[m["case_id"]].values()))
+    reviewed = [m for m in members if readings.get(m["case_id"])]
+    pending = [m["case_id"] for m in members if not readings.get(m["case_id"])]
+    ys = [1 if _disagrees(readings[m["case_id"]]) else 0 for m in reviewed]
+    unsure = sum(1 for m in reviewed if any(r["verdict"] == "unsure" for r in readings[m["case_id"]].values()))
     out: dict[str, Any] = {"draw_id": body["draw_id"], "plan": body["plan"], "members": len(members),
                            "population_size": body["population_size"], "unsure": unsure,
-                           "pending": pending, **_rate(sum(ys), len(reviewed))}
+                           "pending": pending, "read_elsewhere": [c for c in pending if c in elsewhere],
+                           **_rate(sum(ys), len(reviewed))}
     pis = {m["inclusion_probability"] for m in members}
     if body["plan"] in ("risk", "stratified") or len(pis) > 1:
-        if pending:
-            out["weighted"] = {"estimate": None, "reason": f"{len(pending)} member(s) not yet reviewed"}
-        else:
-            ht = horvitz_thompson(ys, [m["inclusion_probability"] for m in reviewed], body["population_size"])
-            half = Z95 * ht["standard_error"]
-            ht["interval_95"] = [max(0.0, ht["estimate"] - half), min(1.0, ht["estimate"] + half)]
-            ht["method"] = "Horvitz-Thompson, N known; Poisson-sampling variance"
-            out["weighted"] = ht
+        out["weighted"] = population_rate(body, readings, _disagrees)
     lot = body.get("lot")
     if lot:
         out["lot"] = {**lot, "defectives": sum(ys), "decision": lot_decision(sum(ys), len(reviewed), lot)}
     return out
 
 
-def agreement(current: Mapping[str, Mapping[str, Any]], model_labels: Mapping[str, str]) -> dict[str, Any]:
-    """Model-vs-reader kappa and confusion table, and kappa for every pair of readers."""
+def _reader_labels(current: Mapping[str, Readers], model_labels: Mapping[str, str]
+                   ) -> tuple[list[tuple[str, str]], dict[str, dict[str, str]]]:
     pairs: list[tuple[str, str]] = []
-    labels_by_reader: dict[str, dict[str, str]] = {}
+    by_reader: dict[str, dict[str, str]] = {}
     for case_id, readers in current.items():
         model = model_labels.get(case_id)
         if model is None:
@@ -93,35 +98,73 @@ def agreement(current: Mapping[str, Mapping[str, Any]], model_labels: Mapping[st
             lab = reader_label(review, model)
             if lab is not None:
                 pairs.append((model, lab))
-                labels_by_reader.setdefault(reader, {})[case_id] = lab
+                by_reader.setdefault(reader, {})[case_id] = lab
+    return pairs, by_reader
+
+
+def _fleiss(by_reader: Mapping[str, Mapping[str, str]]) -> dict[str, Any] | None:
+    if len(by_reader) < 3:
+        return None
+    names = sorted(by_reader)
+    common = sorted(set.intersection(*(set(by_reader[r]) for r in names)))
+    out: dict[str, Any] = {"readers": names, "cases": len(common), "n_of": "cases labelled by every reader"}
+    out["kappa"] = fleiss_kappa([[by_reader[r][c] for r in names] for c in common]) if common else None
+    return out
+
+
+def agreement(current: Mapping[str, Readers], model_labels: Mapping[str, str]) -> dict[str, Any]:
+    """Model-vs-reader kappa and confusion table, Cohen's kappa per reader pair, Fleiss' for 3 or more."""
+    pairs, by_reader = _reader_labels(current, model_labels)
     reader_pairs = []
-    for a, b in combinations(sorted(labels_by_reader), 2):
-        both = sorted(set(labels_by_reader[a]) & set(labels_by_reader[b]))
+    for a, b in combinations(sorted(by_reader), 2):
+        both = sorted(set(by_reader[a]) & set(by_reader[b]))
         if both:
-            ka = cohen_kappa([labels_by_reader[a][c] for c in both], [labels_by_reader[b][c] for c in both])
-            reader_pairs.append({"readers": [a, b], "cases": len(both), "kappa": ka})
+            ka = cohen_kappa([by_reader[a][c] for c in both], [by_reader[b][c] for c in both])
+            reader_pairs.append({"readers": [a, b], "cases": len(both), "n_of": "cases read by both",
+                                 "kappa": ka})
     return {
-        "model_vs_reader": {"pairs": len(pairs),
+        "model_vs_reader": {"readings": len(pairs), "n_of": "readings",
                             "kappa": cohen_kappa([m for m, _ in pairs], [r for _, r in pairs]) if pairs else None},
         "confusion": confusion_table(pairs),
         "reader_pairs": reader_pairs,
+        "fleiss": _fleiss(by_reader),
     }
 
 
+def reader_conflicts(current: Mapping[str, Readers], model_labels: Mapping[str, str],
+                     adjudications: list[Mapping[str, Any]]) -> dict[str, Any]:
+    """Cases where readers disagree with each other, and which of them an adjudication settled."""
+    cases = sorted(c for c, readers in current.items()
+                   if c in model_labels and readers_disagree(readers, model_labels[c]))
+    settled = {a["case_id"] for a in adjudications}
+    return {"cases": cases, "adjudicated": [c for c in cases if c in settled],
+            "open": [c for c in cases if c not in settled], "n_of": "cases"}
+
+
 def summarise_data(draws: list[Mapping[str, Any]], reviews: list[Mapping[str, Any]],
-                   model_labels: Mapping[str, str]) -> dict[str, Any]:
-    """The pure part of ``summarise``: draw bodies and review bodies in seq order, model label per case."""
-    current = current_reviews(list(reviews))
-    per_draw = [summarise_draw(d, current) for d in draws]
+                   model_labels: Mapping[str, str],
+                   adjudications: list[Mapping[str, Any]] | None = None) -> dict[str, Any]:
+    """The pure part of ``summarise``: draw and review bodies in seq order (a ``seq`` key in each review,
+    when present, is its entry's seq), the model label per case, adjudication bodies."""
+    readings = current_readings(reviews)
+    current = latest_by_reader(readings)
+    per_draw = []
+    for d in draws:
+        elsewhere = {c for (c, _, did) in readings if did != d["draw_id"]}
+        per_draw.append(summarise_draw(d, for_draw(readings, d["draw_id"]), elsewhere))
     k = sum(1 for readers in current.values() if _disagrees(readers))
-    pending = sorted({c for d in per_draw for c in d["pending"]})
-    readers = sorted({r for readers in current.values() for r in readers})
+    warnings = [f"draw {d['draw_id']}: {d['weighted']['warning']}" for d in per_draw
+                if "warning" in d.get("weighted", {})]
     return {
+        "rule": READ_RULE,
         "draws": per_draw,
-        "overall": {**_rate(k, len(current)), "readers": readers, "reviews": len(reviews),
-                    "note": "unweighted, over every reviewed case"},
+        "overall": {**_rate(k, len(current)), "readers": sorted({r for rs in current.values() for r in rs}),
+                    "readings": sum(len(rs) for rs in current.values()), "reviews": len(reviews),
+                    "note": "unweighted, over every reviewed case, each reader's latest reading"},
         "agreement": agreement(current, model_labels),
-        "pending": pending,
+        "reader_conflicts": reader_conflicts(current, model_labels, list(adjudications or [])),
+        "pending": sorted({c for d in per_draw for c in d["pending"]}),
+        "warnings": warnings,
         "caution": AGREEMENT_CAUTION,
     }
 
@@ -129,76 +172,11 @@ def summarise_data(draws: list[Mapping[str, Any]], reviews: list[Mapping[str, An
 def summarise(ledger: Ledger) -> dict[str, Any]:
     """Per draw and overall second-read statistics for the whole ledger, as plain JSON-ready data."""
     draws = [e.body for e in ledger.entries("draw")]
-    reviews = [e.body for e in ledger.entries("review")]
+    reviews = [{**e.body, "seq": e.seq} for e in ledger.entries("review")]
+    adjudications = [e.body for e in ledger.entries("adjudication")]
     labels = {row["case_id"]: row["label"] for row in ledger.cases()}
-    return summarise_data(draws, reviews, labels)
+    return summarise_data(draws, reviews, labels, adjudications)
 
 
-def _pct(x: float | None) -> str:
-    return "n/a" if x is None else f"{100 * x:.1f} %"
-
-
-def _rate_line(r: Mapping[str, Any]) -> str:
-    if r["rate"] is None:
-        return "no reviews yet"
-    low, high = r["wilson_95"]
-    return (f"{r['disagreements']} of {r['reviewed']} reviewed disagree: {_pct(r['rate'])} "
-            f"(95 % Wilson {_pct(low)} to {_pct(high)})")
-
-
-def format_text(summary: Mapping[str, Any]) -> str:
-    """Human-readable lines for the ``stats`` command."""
-    lines = ["Second reads", "", f"Overall: {_rate_line(summary['overall'])}",
-             f"Readers: {', '.join(summary['overall']['readers']) or 'none'}"]
-    mv = summary["agreement"]["model_vs_reader"]
-    kappa = "n/a" if mv["kappa"] is None else f"{mv['kappa']:.3f}"
-    lines.append(f"Cohen's kappa, model vs reader labels: {kappa} over {mv['pairs']} reading(s)")
-    for p in summary["agreement"]["reader_pairs"]:
-        kp = "n/a" if p["kappa"] is None else f"{p['kappa']:.3f}"
-        lines.append(f"Cohen's kappa, {p['readers'][0]} vs {p['readers'][1]}: {kp} over {p['cases']} case(s)")
-    conf = summary["agreement"]["confusion"]
-    if conf["labels"]:
-        width = max(len(x) for x in [*conf["labels"], "model \\ reader"]) + 2
-        lines += ["", "Model label (rows) by reader label (columns):",
-                  "model \\ reader".ljust(width) + "".join(x.rjust(width) for x in conf["labels"])]
-        for m in conf["labels"]:
-            lines.append(m.ljust(width) + "".join(str(conf["rows"][m][r]).rjust(width) for r in conf["labels"]))
-    for d in summary["draws"]:
-        lines += ["", f"Draw {d['draw_id']} ({d['plan']}): {d['members']} of {d['population_size']} cases",
-                  f"  {_rate_line(d)}"]
-        w = d.get("weighted")
-        if w is not None:
-            if w.get("estimate") is None:
-                lines.append(f"  weighted estimate: not yet ({w['reason']})")
-            else:
-                lo, hi = w["interval_95"]
-                lines.append(f"  weighted estimate for the population: {_pct(w['estimate'])} "
-                             f"(95 % {_pct(lo)} to {_pct(hi)}, Horvitz-Thompson)")
-        if "lot" in d:
-            lot = d["lot"]
-            lines.append(f"  lot: code letter {lot['code_letter']}, n={lot['sample_size']}, AQL {lot['aql']:g}, "
-                         f"Ac {lot['accept']} Re {lot['reject']}; defectives {lot['defectives']}: {lot['decision']}")
-        if d["pending"]:
-            lines.append(f"  awaiting review: {len(d['pending'])} ({', '.join(d['pending'][:10])}"
-                         f"{', ...' if len(d['pending']) > 10 else ''})")
-    lines += ["", summary["caution"]]
-    return "\n".join(lines)
-
-
-def describe_draw(body: Mapping[str, Any]) -> str:
-    """Human-readable lines for the ``sample`` command: what was drawn and how to redraw it."""
-    opts = ", ".join(f"{k}={v}" for k, v in sorted(body["options"].items())) or "none"
-    filters = ", ".join(f"{k}={v}" for k, v in sorted(body["filters"].items())) or "none (every case)"
-    lines = [f"Draw {body['draw_id']} ({body['plan']} plan, seed {body['seed']}, options {opts})",
-             f"Filters: {filters}; population {body['population_size']} case(s); "
-             f"{len(body['members'])} drawn"]
-    lot = body.get("lot")
-    if lot:
-        full = " (every case: sample size reaches the lot size)" if lot["full_inspection"] else ""
-        lines.append(f"ISO 2859-1 level {lot['level']}: code letter {lot['code_letter']}, plan row "
-                     f"{lot['plan_letter']}, n={lot['sample_size']}{full}, AQL {lot['aql']:g}, "
-                     f"accept with at most {lot['accept']} disagreement(s), reject at {lot['reject']}")
-    for m in body["members"]:
-        stratum = f"  [{m['stratum']}]" if "stratum" in m else ""
-        lines.append(f"  {m['case_id']}  seq {m['seq']}  p={m['inclusion_probability']:.4g}{stratum}")
-    return "\n".join(lines)
+__all__ = ["agreement", "describe_draw", "format_text", "reader_conflicts", "summarise", "summarise_data",
+           "summarise_draw"]

@@ -1,16 +1,6 @@
-"""Second reads in the ledger: draw entries (samples anyone can redraw) and reader review entries.
+"""Second-read draws in the ledger: ``draw`` entries (samples anyone can redraw) and their redraw.
 
-Rules for a review (decided here and kept by ``record_review``):
-- the case id must name a recorded case; the reader id must not be blank; the verdict is one of
-  ``agree``, ``disagree``, ``unsure``;
-- ``label`` (the reader's own label) is optional. With ``agree`` it must equal the model's label when
-  given; with ``disagree`` it must differ from it. A ``disagree`` without a label still counts as a
-  disagreement but cannot enter the confusion table or kappa;
-- several readers may review one case; a reader's later review of the same case amends the earlier one:
-  ``amends_seq`` names the seq it replaces (filled in automatically with the reader's latest review
-  when not given) and both stay visible. A reader may only amend their own review of the same case;
-- the reader's current verdict is their latest review;
-- ``draw_id``, when not given, is the latest draw that has the case among its members, if any.
+Readers' verdicts on the drawn cases are in ``casefile.review.readings``.
 """
 
 from __future__ import annotations
@@ -20,11 +10,10 @@ from collections.abc import Mapping
 from typing import Any
 
 from casefile.canonical import canonical_bytes
-from casefile.errors import LedgerError, ValidationError
+from casefile.errors import ValidationError
 from casefile.ledger import Entry, Ledger, utc_now
-from casefile.review.plans import PLANS, draw_plan
+from casefile.review.plans import DEFAULT_MINIMUM, PLANS, draw_plan
 
-VERDICTS = ("agree", "disagree", "unsure")
 FILTER_KEYS = ("model", "label", "status", "since", "until")
 
 
@@ -68,19 +57,24 @@ def _body(plan: str, pop: list[dict[str, Any]], filters: dict[str, str], seed: i
         "population_digest": hashlib.sha256(canonical_bytes(seqs)).hexdigest(),
         "members": drawn["members"],
     }
+    if drawn["strata"] is not None:
+        body["strata"] = drawn["strata"]
     if drawn["lot"] is not None:
         body["lot"] = drawn["lot"]
     return body
 
 
-def _plan_kwargs(options: Mapping[str, Any]) -> dict[str, Any]:
-    keys = ("size", "aql", "level", "allocation", "strata", "share")
-    return {k: options[k] for k in keys if k in options}
+def _plan_kwargs(plan: str, options: Mapping[str, Any]) -> dict[str, Any]:
+    keys = ("size", "aql", "level", "allocation", "strata", "share", "minimum")
+    kwargs = {k: options[k] for k in keys if k in options}
+    if plan == "risk" and "minimum" not in options:
+        kwargs["minimum"] = None  # drawn by an older release: Bernoulli sampling by status
+    return kwargs
 
 
 def draw(ledger: Ledger, plan: str, *, size: int | None = None, aql: float | None = None, level: str = "II",
          seed: int = 0, filters: Mapping[str, Any] | None = None, allocation: str = "proportional",
-         strata: str = "label", share: float | None = None) -> Entry:
+         strata: str = "label", share: float | None = None, minimum: int = DEFAULT_MINIMUM) -> Entry:
     """Draw a sample for second reads and append it as a ``draw`` entry.
 
     Drawing the very same thing again (same plan, options, filters, seed and population) writes nothing
@@ -96,7 +90,7 @@ def draw(ledger: Ledger, plan: str, *, size: int | None = None, aql: float | Non
     elif plan == "stratified":
         kwargs.update(allocation=allocation, strata=strata)
     elif plan == "risk":
-        kwargs["share"] = share
+        kwargs.update(share=share, minimum=minimum)
     body = _body(plan, pop, clean, seed, kwargs)
     for row in ledger.rows("draws"):
         if row["draw_id"] == body["draw_id"]:
@@ -115,75 +109,13 @@ def redraw(ledger: Ledger, draw_entry: Entry) -> dict[str, Any]:
     old = draw_entry.body
     pop = population(ledger, old["filters"], before_seq=draw_entry.seq)
     try:
-        new = _body(old["plan"], pop, dict(old["filters"]), int(old["seed"]), _plan_kwargs(old["options"]))
+        new = _body(old["plan"], pop, dict(old["filters"]), int(old["seed"]),
+                    _plan_kwargs(old["plan"], old["options"]))
     except ValidationError as exc:
         return {"matches": False, "draw_id": old["draw_id"], "differences": [str(exc)]}
-    fields = ("draw_id", "plan", "options", "population_size", "population_digest", "members", "lot")
+    fields = ("draw_id", "plan", "options", "population_size", "population_digest", "members", "strata", "lot")
     differences = [f for f in fields if new.get(f) != old.get(f)]
     return {"matches": not differences, "draw_id": old["draw_id"], "differences": differences}
 
 
-def _latest_draw_with(ledger: Ledger, case_id: str) -> str | None:
-    found = None
-    for e in ledger.entries("draw"):
-        if any(m["case_id"] == case_id for m in e.body["members"]):
-            found = e.body["draw_id"]
-    return found
-
-
-def record_review(ledger: Ledger, case_id: str, *, reader: str, verdict: str, label: str | None = None,
-                  note: str | None = None, amends: int | None = None, draw_id: str | None = None) -> Entry:
-    """Append a reader's verdict on a case as a ``review`` entry (rules in this module's docstring)."""
-    if not isinstance(reader, str) or not reader.strip():
-        raise ValidationError(f"review of {case_id}: reader id is empty; give who read the case")
-    reader = reader.strip()
-    if verdict not in VERDICTS:
-        raise ValidationError(f"review of {case_id}: verdict {verdict!r} is not one of {', '.join(VERDICTS)}")
-    try:
-        history = ledger.case(case_id)
-    except LedgerError:
-        raise ValidationError(f"review of {case_id}: no case with this id in the ledger") from None
-    model_label = history.entry.body["result"]["label"]
-    if label is not None:
-        label = label.strip()
-        if not label:
-            raise ValidationError(f"review of {case_id}: label is blank; leave it out or give the reader's label")
-        if verdict == "agree" and label != model_label:
-            raise ValidationError(f"review of {case_id}: verdict agree but label {label!r} differs from the "
-                                  f"model's {model_label!r}; use disagree")
-        if verdict == "disagree" and label == model_label:
-            raise ValidationError(f"review of {case_id}: verdict disagree but label {label!r} is the model's own")
-    own = [r for r in history.reviews if r.body["reader"] == reader]
-    if amends is not None:
-        target = next((r for r in history.reviews if r.seq == amends), None)
-        if target is None:
-            raise ValidationError(f"review of {case_id}: seq {amends} is not a review of this case")
-        if target.body["reader"] != reader:
-            raise ValidationError(f"review of {case_id}: seq {amends} is {target.body['reader']!r}'s review; "
-                                  "a reader may only amend their own")
-    elif own:
-        amends = own[-1].seq
-    body: dict[str, Any] = {"case_id": case_id, "case_seq": history.entry.seq, "reader": reader,
-                            "verdict": verdict, "reviewed_at": utc_now()}
-    if label is not None:
-        body["label"] = label
-    if note is not None:
-        body["note"] = note
-    if amends is not None:
-        body["amends_seq"] = amends
-    draw_id = draw_id or _latest_draw_with(ledger, case_id)
-    if draw_id is not None:
-        body["draw_id"] = draw_id
-    return ledger.append("review", body)
-
-
-def current_reviews(reviews: list[Mapping[str, Any]]) -> dict[str, dict[str, dict[str, Any]]]:
-    """Latest review per (case, reader) from review bodies given in seq order: {case_id: {reader: body}}."""
-    out: dict[str, dict[str, dict[str, Any]]] = {}
-    for body in reviews:
-        out.setdefault(body["case_id"], {})[body["reader"]] = dict(body)
-    return out
-
-
-__all__ = ["VERDICTS", "current_reviews", "draw", "draw_id_for", "population", "record_review",
-           "redraw"]
+__all__ = ["draw", "draw_id_for", "population", "redraw"]

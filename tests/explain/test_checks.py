@@ -78,9 +78,13 @@ def test_method_agreement_pass_warn_and_flat() -> None:
 def test_confidence_and_margin() -> None:
     # Thresholds: CHECK_DEFAULTS (0.6 top probability, 0.1 margin), common practice for triage.
     assert ck.confidence(np.array([0.62, 0.33, 0.05]), 0).outcome == "pass"
-    assert ck.confidence(np.array([0.50, 0.45, 0.05]), 0).outcome == "warn"
+    assert ck.confidence(np.array([0.50, 0.30, 0.20]), 0).outcome == "warn"  # unsure, clear leader
     assert ck.confidence(np.array([0.65, 0.0, 0.35]), 0).outcome == "pass"
-    assert ck.confidence(np.array([0.52, 0.48]), 0, settings={"confidence_warn": 0.5}).outcome == "warn"
+    # a runner-up within 0.1 fails: the two leading labels cannot be told apart
+    assert ck.confidence(np.array([0.50, 0.45, 0.05]), 0).outcome == "fail"
+    assert ck.confidence(np.array([0.52, 0.48]), 0, settings={"confidence_warn": 0.5}).outcome == "fail"
+    assert ck.confidence(np.array([0.52, 0.48]), 0,
+                         settings={"confidence_warn": 0.5, "confidence_margin": 0.02}).outcome == "pass"
 
 
 def test_numerical_names_what_is_not_finite() -> None:

@@ -37,6 +37,9 @@ def full(tmp_path) -> Path:
                             "members": [{"case_id": "c-000001", "seq": 1, "inclusion_probability": 1}]})
         led.append("review", {"case_id": "c-000001", "case_seq": 1, "reader": "r1", "verdict": "agree",
                               "reviewed_at": "2026-12-01T11:00:00Z"})
+        led.append("adjudication", {"case_id": "c-000001", "case_seq": 1, "adjudicator": "r3", "label": "sound",
+                                    "reason": "readers split", "readings": [5, 6],
+                                    "adjudicated_at": "2026-12-01T12:00:00Z"})
         led.seal()
     return db
 
@@ -58,7 +61,7 @@ def test_raw_update_and_delete_of_every_query_table_are_refused(full, table):
     assert con.execute(f"SELECT * FROM {table}").fetchall() == rows
     # a row can be added only together with its entry (the head), never for an older one
     cols = [c.name for c in t.metadata.tables[table].columns]
-    first = {**dict(zip(cols, rows[0], strict=True)), "seq": 1}  # seq 1 is not the head (seq 6)
+    first = {**dict(zip(cols, rows[0], strict=True)), "seq": 1}  # seq 1 is not the head (seq 7)
     with pytest.raises(sqlite3.DatabaseError, match="only with its entry"):
         con.execute(f"INSERT INTO {table} ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
                     tuple(first.values()))
@@ -95,14 +98,15 @@ def test_rebuild_command_records_that_it_ran(full):
     done = cli(full, "rebuild", "--reason", "checking the rebuild path", "--json")
     assert done.returncode == 0, done.stderr
     line = json.loads(done.stdout)
-    assert line["seq"] == 7 and line["reason"] == "checking the rebuild path" and line["entries"] == 6
+    assert line["seq"] == 8 and line["reason"] == "checking the rebuild path" and line["entries"] == 7
     assert line["rows"]["cases"] == 1 and line["rows"]["seals"] == 1 and line["rows"]["entry_blobs"] == 1
+    assert line["rows"]["case_checks"] == 1 and line["rows"]["adjudications"] == 1
     with Ledger(str(full)) as led:
-        assert led.get(7).kind == "rebuild" and led.verify().ok
+        assert led.get(8).kind == "rebuild" and led.verify().ok
     one_line_refusal(cli(full, "rebuild", "--reason", "  "), "reason is empty")
     assert cli(full, "rebuild").returncode == 2  # --reason is required
     with Ledger(str(full)) as led:
-        assert led.count() == 7
+        assert led.count() == 8
 
 
 def test_duplicate_case_raises_duplicate_case_error(tmp_path):

@@ -1,5 +1,6 @@
 """Sampling plans: properties (hypothesis), allocation rules and unbiasedness of the risk plan."""
 
+import math
 import random
 import statistics
 
@@ -16,9 +17,12 @@ STATUSES = ["pass", "warn", "fail", "not-run"]
 
 def _population(n, seed=1, labels=("normal", "abnormal")):
     rng = random.Random(seed)
-    return [{"case_id": f"case-{i:04d}", "seq": 2 * i + 1, "label": rng.choice(labels),
+    rows = [{"case_id": f"case-{i:04d}", "seq": 2 * i + 1, "label": rng.choice(labels),
              "status": rng.choice(STATUSES), "model_name": "m", "model_version": "1",
              "confidence": 0.9, "recorded_at": "2024-01-01T00:00:00Z"} for i in range(n)]
+    for r in rows:  # a fail flags (every check here flags on fail); a warn only sometimes does
+        r["flagged"] = 1 if r["status"] == "fail" or (r["status"] == "warn" and rng.random() < 0.3) else 0
+    return rows
 
 
 populations = st.builds(_population, st.integers(1, 60), st.integers(0, 10_000))
@@ -53,14 +57,32 @@ def test_stratified_plan_properties(pop, size, seed, allocation, strata):
 
 
 @settings(max_examples=40, deadline=None)
-@given(populations, st.floats(0.01, 1.0), st.integers(0, 2**32))
-def test_risk_plan_takes_every_flagged_case(pop, share, seed):
-    d = draw_plan("risk", pop, share=share, seed=seed)
+@given(populations, st.floats(0.01, 1.0), st.integers(0, 2**32), st.integers(1, 12))
+def test_risk_plan_takes_every_flagged_case_and_the_minimum_of_the_rest(pop, share, seed, minimum):
+    d = draw_plan("risk", pop, share=share, seed=seed, minimum=minimum)
     _check_members(d, pop)
-    flagged = {r["seq"] for r in pop if r["status"] in ("warn", "fail")}
+    flagged = {r["seq"] for r in pop if r["flagged"]}
     taken = {m["seq"]: m["inclusion_probability"] for m in d["members"]}
     assert flagged <= set(taken)
     assert all(taken[s] == 1.0 for s in flagged)
+    # the unflagged stratum: a simple random sample of ceil(share * N_u), never fewer than the minimum
+    # (or all of them), each with inclusion probability n_u / N_u
+    rest = [r["seq"] for r in pop if not r["flagged"]]
+    drawn = [s for s in rest if s in taken]
+    assert len(drawn) == min(len(rest), max(minimum, math.ceil(share * len(rest) - 1e-9)))
+    assert all(taken[s] == pytest.approx(len(drawn) / len(rest)) for s in drawn)
+    assert d["strata"] == {"flagged": {"size": len(flagged), "drawn": len(flagged)},
+                           "unflagged": {"size": len(rest), "drawn": len(drawn)}}
+
+
+def test_risk_plan_draws_by_flags_not_by_any_warn():
+    # a warn that flags nothing (e.g. method agreement, a note) leaves the case in the sampled stratum
+    pop = [{"case_id": f"c{i}", "seq": i + 1, "label": "x", "status": "warn", "flagged": int(i < 3)}
+           for i in range(40)]
+    d = draw_plan("risk", pop, share=0.1, seed=0)
+    flagged = [m for m in d["members"] if m["stratum"] == "flagged"]
+    assert [m["seq"] for m in flagged] == [1, 2, 3]
+    assert sum(1 for m in d["members"] if m["stratum"] == "unflagged") == 5  # ceil(3.7) = 4 < minimum 5
 
 
 @settings(max_examples=30, deadline=None)
@@ -118,18 +140,39 @@ def test_stratified_inclusion_probability_is_n_h_over_N_h():
         assert m["inclusion_probability"] == pytest.approx(taken[m["stratum"]] / sizes[m["stratum"]])
 
 
-def test_risk_plan_weighted_estimate_is_unbiased_naive_is_not():
+def _two_strata(n=500, flagged_n=50):
     # 500 cases: 50 flagged of which 30 disagree, 450 others of which 22 disagree; truth 52/500.
-    # Horvitz & Thompson (1952): sum y/pi over the sample / N is unbiased; the naive sample share is not.
     pop, y = [], {}
-    for i in range(500):
-        flagged = i < 50
-        pop.append({"case_id": f"c{i}", "seq": i + 1, "label": "x", "status": "warn" if flagged else "pass"})
+    for i in range(n):
+        flagged = i < flagged_n
+        pop.append({"case_id": f"c{i}", "seq": i + 1, "label": "x", "status": "warn" if flagged else "pass",
+                    "flagged": int(flagged)})
         y[i + 1] = 1 if (i < 30 or 50 <= i < 72) else 0
-    truth = 52 / 500
-    ht, naive, var = [], [], []
+    return pop, y, 52 / 500
+
+
+def test_risk_plan_horvitz_thompson_is_unbiased_naive_is_not():
+    # Horvitz & Thompson (1952): sum y/pi over the sample / N is unbiased for any design with pi > 0,
+    # here the flagged census plus a simple random sample of the rest; the naive sample share is not.
+    pop, y, truth = _two_strata()
+    ht, naive = [], []
     for seed in range(2000):
         d = draw_plan("risk", pop, share=0.1, seed=seed)
+        ys = [y[m["seq"]] for m in d["members"]]
+        ht.append(horvitz_thompson(ys, [m["inclusion_probability"] for m in d["members"]], len(pop))["estimate"])
+        naive.append(sum(ys) / len(ys))
+    se_ht = statistics.stdev(ht) / len(ht) ** 0.5
+    se_naive = statistics.stdev(naive) / len(naive) ** 0.5
+    assert abs(statistics.fmean(ht) - truth) < 2 * se_ht
+    assert abs(statistics.fmean(naive) - truth) > 20 * se_naive
+
+
+def test_older_bernoulli_risk_draws_redraw_and_stay_unbiased():
+    # draws recorded by older releases (no minimum): Bernoulli sampling by status, Poisson variance
+    pop, y, truth = _two_strata()
+    ht, naive, var = [], [], []
+    for seed in range(2000):
+        d = draw_plan("risk", pop, share=0.1, seed=seed, minimum=None)
         ys = [y[m["seq"]] for m in d["members"]]
         r = horvitz_thompson(ys, [m["inclusion_probability"] for m in d["members"]], len(pop))
         ht.append(r["estimate"])

@@ -5,8 +5,9 @@ from scipy.stats import binomtest
 from sklearn.metrics import cohen_kappa_score
 
 from casefile.canonical import canonical_bytes
+from casefile.review.readings import record_review
 from casefile.review.stats import describe_draw, format_text, summarise, summarise_data
-from casefile.review.store import draw, record_review
+from casefile.review.store import draw
 
 
 def _rev(case_id, reader, verdict, label=None):
@@ -16,26 +17,88 @@ def _rev(case_id, reader, verdict, label=None):
     return r
 
 
+def _risk_body(flagged, unflagged, size_unflagged, draw_id="d-000000000001"):
+    members = [{"case_id": c, "seq": i + 1, "inclusion_probability": 1.0, "stratum": "flagged"}
+               for i, c in enumerate(flagged)]
+    members += [{"case_id": c, "seq": 100 + i, "inclusion_probability": len(unflagged) / size_unflagged,
+                 "stratum": "unflagged"} for i, c in enumerate(unflagged)]
+    return {"draw_id": draw_id, "plan": "risk", "population_size": len(flagged) + size_unflagged,
+            "options": {"minimum": 5, "share": 0.5}, "members": members,
+            "strata": {"flagged": {"size": len(flagged), "drawn": len(flagged)},
+                       "unflagged": {"size": size_unflagged, "drawn": len(unflagged)}}}
+
+
 def test_risk_draw_weighted_estimate_by_hand():
-    # N = 10; two flagged members (pi = 1), two others (pi = 0.25). Outcomes: flagged 1, 0; others 1, 0.
-    # Horvitz-Thompson (1952): (1/N) sum y/pi = (1/10)(1/1 + 1/0.25) = 0.5;
-    # Poisson variance (1/N^2) sum (1-pi)/pi^2 y^2 = (1/100)(0.75/0.0625) = 0.12.
-    body = {"draw_id": "d-000000000001", "plan": "risk", "population_size": 10, "members": [
-        {"case_id": "a", "seq": 1, "inclusion_probability": 1.0},
-        {"case_id": "b", "seq": 2, "inclusion_probability": 1.0},
-        {"case_id": "c", "seq": 3, "inclusion_probability": 0.25},
-        {"case_id": "d", "seq": 4, "inclusion_probability": 0.25}]}
+    # N = 10: the flagged stratum (2 cases) read in full, 1 of 2 disagree; 5 of the 8 unflagged drawn,
+    # 1 of 5 disagree. Stratified estimate (= Horvitz-Thompson with pi = n_h / N_h):
+    # (2/10)(1/2) + (8/10)(1/5) = 0.26. With one sampled stratum MOVER is that stratum's Wilson interval
+    # scaled by its weight: 0.1 + 0.8 * [l, u], continuity-corrected Wilson (1, 5) from scipy.
+    body = _risk_body(["a", "b"], ["c", "d", "e", "f", "g"], 8)
     reviews = [_rev("a", "r1", "disagree", "y"), _rev("b", "r1", "agree"), _rev("c", "r1", "disagree"),
-               _rev("d", "r1", "agree")]
-    s = summarise_data([body], reviews, {c: "x" for c in "abcd"})
+               *(_rev(c, "r1", "agree") for c in "defg")]
+    reviews = [{**r, "draw_id": body["draw_id"]} for r in reviews]
+    s = summarise_data([body], reviews, {c: "x" for c in "abcdefg"})
     w = s["draws"][0]["weighted"]
-    assert w["estimate"] == pytest.approx(0.5)
-    assert w["variance"] == pytest.approx(0.12)
-    assert s["draws"][0]["rate"] == 0.5
-    # with a member unread the weighted estimate waits
-    s = summarise_data([body], reviews[:3], {c: "x" for c in "abcd"})
+    ci = binomtest(1, 5).proportion_ci(method="wilsoncc")  # reference: scipy
+    assert w["estimate"] == pytest.approx(0.26)
+    assert w["interval_95"] == pytest.approx([0.1 + 0.8 * ci.low, 0.1 + 0.8 * ci.high], abs=1e-12)
+    assert w["reviewed"] == 7 and w["n_of"] == "cases" and "warning" not in w
+    assert s["draws"][0]["rate"] == pytest.approx(2 / 7)
+    # with a member unread for this draw the weighted estimate waits
+    s = summarise_data([body], reviews[:6], {c: "x" for c in "abcdefg"})
     assert s["draws"][0]["weighted"]["estimate"] is None
-    assert s["draws"][0]["pending"] == ["d"]
+    assert s["draws"][0]["pending"] == ["g"]
+
+
+def test_zero_disagreements_in_the_sampled_stratum_never_give_a_point_interval():
+    # 0 of 5 unflagged disagree: the old Poisson variance was 0 and the interval one point; the
+    # continuity-corrected Wilson bound for 0 of 5 (scipy) keeps the population interval open
+    body = _risk_body(["a", "b"], ["c", "d", "e", "f", "g"], 8)
+    reviews = [{**_rev(c, "r1", "agree"), "draw_id": body["draw_id"]} for c in "abcdefg"]
+    w = summarise_data([body], reviews, {c: "x" for c in "abcdefg"})["draws"][0]["weighted"]
+    ci = binomtest(0, 5).proportion_ci(method="wilsoncc")
+    assert w["estimate"] == 0.0 and ci.high > 0.4
+    assert w["interval_95"] == pytest.approx([0.0, 0.8 * ci.high], abs=1e-12)
+
+
+def test_an_older_risk_draw_with_no_unflagged_member_gives_bounds_and_a_warning():
+    # a Bernoulli draw by an older release that drew none of the 12 unflagged cases (the demo's old
+    # draw): the unflagged rate is only known to lie in [0, 1], so the population rate lies between
+    # (68/80)(18/68) and that plus 12/80, with no estimate and a warning naming the stratum
+    members = [{"case_id": f"f{i}", "seq": i + 1, "inclusion_probability": 1, "stratum": "flagged"}
+               for i in range(68)]
+    body = {"draw_id": "d-00000000000a", "plan": "risk", "population_size": 80, "options": {"share": 0.2},
+            "members": members}
+    reviews = [{**_rev(f"f{i}", "sim", "disagree" if i < 18 else "agree"), "draw_id": body["draw_id"]}
+               for i in range(68)]
+    s = summarise_data([body], reviews, {f"f{i}": "x" for i in range(68)})
+    w = s["draws"][0]["weighted"]
+    assert w["estimate"] is None
+    assert w["interval_95"] == pytest.approx([18 / 80, 18 / 80 + 12 / 80])
+    assert "fewer than 5 reviewed" in w["warning"] and "'other'" in w["warning"]
+    assert s["warnings"] == [f"draw d-00000000000a: {w['warning']}"]
+    text = format_text(s)
+    assert "no point estimate; between 22.5 % and 37.5 %" in text and w["warning"] in text
+
+
+def test_two_sampled_strata_join_by_mover():
+    # stratified draw, strata A (N 20, 5 read, 1 disagrees) and B (N 30, 6 read, 3 disagree).
+    # MOVER (Zou & Donner 2008): S = sum w p, L = S - sqrt(sum (w (p - l))^2), U = S + sqrt(sum (w (u - p))^2)
+    # with continuity-corrected Wilson (l, u) per stratum from scipy; weights 20/50 and 30/50.
+    members = [{"case_id": f"a{i}", "seq": i + 1, "inclusion_probability": 5 / 20, "stratum": "A"} for i in range(5)]
+    members += [{"case_id": f"b{i}", "seq": 50 + i, "inclusion_probability": 6 / 30, "stratum": "B"} for i in range(6)]
+    body = {"draw_id": "d-00000000000b", "plan": "stratified", "population_size": 50, "options": {"size": 11},
+            "members": members, "strata": {"A": {"size": 20, "drawn": 5}, "B": {"size": 30, "drawn": 6}}}
+    bad = {"a0", "b0", "b1", "b2"}
+    reviews = [{**_rev(m["case_id"], "r", "disagree" if m["case_id"] in bad else "agree"), "draw_id": body["draw_id"]}
+               for m in members]
+    w = summarise_data([body], reviews, {m["case_id"]: "x" for m in members})["draws"][0]["weighted"]
+    a, b = binomtest(1, 5).proportion_ci(method="wilsoncc"), binomtest(3, 6).proportion_ci(method="wilsoncc")
+    est = 0.4 * 0.2 + 0.6 * 0.5
+    low = est - ((0.4 * (0.2 - a.low)) ** 2 + (0.6 * (0.5 - b.low)) ** 2) ** 0.5
+    high = est + ((0.4 * (a.high - 0.2)) ** 2 + (0.6 * (b.high - 0.5)) ** 2) ** 0.5
+    assert w["estimate"] == pytest.approx(est)
+    assert w["interval_95"] == pytest.approx([low, high], abs=1e-12)
 
 
 def test_overall_rate_kappa_and_confusion_against_references():
@@ -92,7 +155,7 @@ def test_format_text_lists_pending_and_kappa(ledger):
     record_review(ledger, first, reader="dr-a", verdict="agree")
     text = format_text(summarise(ledger))
     assert "awaiting review" in text
-    assert "weighted estimate: not yet" in text
+    assert "population estimate: not yet" in text
     assert "Cohen's kappa, model vs reader labels" in text
 
 

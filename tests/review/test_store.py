@@ -6,7 +6,8 @@ import pytest
 
 from casefile.canonical import canonical_bytes
 from casefile.errors import ValidationError
-from casefile.review.store import draw, record_review, redraw
+from casefile.review.readings import record_review
+from casefile.review.store import draw, redraw
 from tests.review.conftest import case_body
 
 
@@ -90,7 +91,8 @@ def test_bad_reviews_are_refused_and_nothing_written(ledger, case_id, kwargs, wo
 
 def test_amendment_keeps_both_and_only_own(ledger):
     first = record_review(ledger, "rv-00001", reader="dr-a", verdict="agree")
-    second = record_review(ledger, "rv-00001", reader="dr-a", verdict="disagree", label="crack", note="hairline")
+    second = record_review(ledger, "rv-00001", reader="dr-a", verdict="disagree", label="crack", note="hairline",
+                           amends=first.seq)
     assert second.body["amends_seq"] == first.seq
     other = record_review(ledger, "rv-00001", reader="dr-b", verdict="unsure")
     assert "amends_seq" not in other.body
