@@ -29,5 +29,9 @@ class ExplainError(CasefileError):
     """An explanation method cannot run with the settings given."""
 
 
+class OutputError(CasefileError):
+    """A file cannot be written where it was asked for (folder missing, no permission, disk full)."""
+
+
 class ExchangeError(CasefileError):
     """A DICOM object cannot be made, or the archive refused it or cannot be reached."""

@@ -10,9 +10,18 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from casefile.errors import CasefileError, DuplicateCaseError, ExplainError, InputError, ValidationError
+from casefile.errors import (
+    CasefileError,
+    DuplicateCaseError,
+    ExplainError,
+    InputError,
+    OutputError,
+    ValidationError,
+)
+from casefile.files import write_atomic
 from casefile.ledger import Ledger, utc_now
-from casefile.record import CaseRecord, build, settings_digest, software_versions
+from casefile.record import CaseRecord, build, settings_digest
+from casefile.software import software_versions
 
 DEFAULT_METHODS = ("gradcam", "occlusion", "gradient")
 
@@ -241,11 +250,11 @@ def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str] | N
     from casefile.sheet import sheet_for_case
 
     target = Path(path) if path is not None else Path(folder or ".") / f"{case_id}.pdf"
-    target.parent.mkdir(parents=True, exist_ok=True)
-    tmp = target.with_suffix(".pdf.part")
-    tmp.write_bytes(sheet_for_case(ledger, case_id, **opts))
-    os.replace(tmp, target)
-    return target
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{target.parent}: cannot create the sheet folder ({exc.strerror or exc})") from None
+    return write_atomic(target, sheet_for_case(ledger, case_id, **opts))
 
 
 def preflight(loaded: Any, run: RunSettings) -> dict[str, Any]:

@@ -3,16 +3,13 @@
 from __future__ import annotations
 
 import hashlib
-import platform
 from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
-
-from casefile import __version__
-from casefile.canonical import canonical_bytes
+from casefile.canonical import canonical_bytes, json_ready
 from casefile.cautions import CAUTION_TEXT
 from casefile.ledger.derive import run_key
+from casefile.software import software_versions
 
 
 @dataclass(frozen=True)
@@ -41,35 +38,9 @@ def case_id_for(file_sha256: str, frame: int | None, model_digest: str, settings
     return "cf-" + run_key(file_sha256, frame, model_digest, settings_hash)[:16]
 
 
-def software_versions(extra: dict[str, str] | None = None) -> dict[str, str]:
-    import torch
-
-    versions = {"casefile": __version__, "python": platform.python_version(),
-                "torch": torch.__version__, "numpy": np.__version__}
-    versions.update(extra or {})
-    return versions
-
-
-def _plain(value: Any) -> Any:
-    """JSON-ready copy of allow-listed metadata; a value that cannot be stored exactly is left out."""
-    if isinstance(value, dict):
-        out = {str(k): _plain(v) for k, v in value.items()}
-        return {k: v for k, v in out.items() if v is not None}
-    if isinstance(value, list | tuple):
-        items = [_plain(v) for v in value]
-        return None if any(v is None for v in items) else items
-    if isinstance(value, bool) or isinstance(value, str):
-        return value
-    if isinstance(value, int):
-        return value if abs(value) < 2**53 else None
-    if isinstance(value, float):
-        return value if np.isfinite(value) else None
-    return None
-
-
 def _roi(card: dict[str, Any]) -> dict[str, Any]:
     """The card's region-of-interest rule (model-input pixels), kept so a sheet can draw it."""
-    roi = _plain(card.get("roi"))
+    roi = json_ready(card.get("roi"), on_bad="drop")
     return {"roi": roi} if isinstance(roi, dict) and roi.get("rule") else {}
 
 
@@ -86,7 +57,7 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
     blobs: list[bytes] = [display_png]
     inp = scan.to_record()
     inp["display_blob"] = digest(display_png)
-    meta = _plain(dict(getattr(scan, "metadata", {}) or {}))
+    meta = json_ready(dict(getattr(scan, "metadata", {}) or {}), on_bad="drop")
     if meta:
         inp["metadata"] = meta  # the imaging room's allow-list of technical attributes only
     maps = []
@@ -101,7 +72,7 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
     body = {
         "case_id": case_id_for(scan.file_sha256, scan.frame, loaded.digest, s_digest),
         "recorded_at": recorded_at,
-        "software": software_versions({k: str(v) for k, v in exp.get("versions", {}).items()}),
+        "software": software_versions(exp.get("versions")),
         "input": inp,
         "model": {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest,
                   "card_digest": loaded.card_digest, "labels": list(loaded.labels),
