@@ -21,6 +21,11 @@ class DuplicateCaseError(ValidationError):
     """The ledger already holds a case for this input, model and settings (or this case id); nothing was written."""
 
 
+class UsageError(CasefileError):
+    """An option or setting cannot work as given (e.g. an occlusion patch larger than the model input);
+    refused before anything is read or written. The command line exits 2 with its usage line."""
+
+
 class LedgerError(CasefileError):
     """The ledger cannot be opened or written as asked."""
 

@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import hashlib
+import math
 import os
 import sys
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Literal
 
 from casefile.errors import (
     CasefileError,
@@ -16,6 +17,7 @@ from casefile.errors import (
     ExplainError,
     InputError,
     OutputError,
+    UsageError,
     ValidationError,
 )
 from casefile.files import write_atomic
@@ -23,7 +25,16 @@ from casefile.ledger import Ledger, utc_now
 from casefile.record import CaseRecord, build, settings_digest
 from casefile.software import software_versions
 
+if TYPE_CHECKING:  # types only; the heavy rooms are imported where they are first needed
+    import numpy as np
+
+    from casefile.imaging import Scan
+    from casefile.models import LoadedModel
+
 DEFAULT_METHODS = ("gradcam", "occlusion", "gradient")
+NamePolicy = Literal["base-name", "digest"]
+NAME_POLICIES: tuple[str, ...] = ("base-name", "digest")
+WITHHELD = "(name withheld)"
 
 
 @dataclass(frozen=True)
@@ -35,6 +46,9 @@ class RunSettings:
     ``max_pixels``/``max_file_pixels`` of None take the site settings' input size limits
     (casefile.imaging.limits). They decide only whether an input is read at all, so they are not part
     of the stored settings: a case recorded under one limit is the same case under another.
+    ``name_policy`` "digest" records ``sha256:`` and 16 hex digits of the file's SHA-256 instead of its
+    base name (as does a card with ``"record_file_name": false``; either one asking is enough); None
+    follows the card. Like the limits it is not part of the stored settings.
     """
 
     methods: tuple[str, ...] = DEFAULT_METHODS
@@ -47,6 +61,11 @@ class RunSettings:
     uid_policy: str = "keep-uids"
     max_pixels: int | None = None
     max_file_pixels: int | None = None
+    name_policy: NamePolicy | None = None
+
+    def names_by_digest(self, loaded: LoadedModel) -> bool:
+        """True when inputs are recorded by digest, not by base name (this run or the card asks for it)."""
+        return self.name_policy == "digest" or loaded.card.get("record_file_name") is False
 
     def with_limits(self) -> RunSettings:
         """These settings with the input size limits filled in from the site settings (read once, here,
@@ -56,7 +75,7 @@ class RunSettings:
         limits = resolve_limits(self.max_pixels, self.max_file_pixels)
         return replace(self, max_pixels=limits.max_pixels, max_file_pixels=limits.max_file_pixels)
 
-    def resolve(self, loaded: Any) -> dict[str, Any]:
+    def resolve(self, loaded: LoadedModel) -> dict[str, Any]:
         """The full, stored settings for this model: every default filled in."""
         from casefile.explain.run import full_settings
 
@@ -90,6 +109,19 @@ class Outcome:
     body: dict[str, Any] | None = None
     sheet: str | None = None
 
+    @property
+    def problem(self) -> str:
+        """The reason without the file name it starts with (for lines that name the input already)."""
+        why = self.reason or "unknown"
+        for lead in (f"{self.input}: ", f"{Path(self.input).name}: "):
+            if why.startswith(lead):
+                return why[len(lead):]
+        return why
+
+    def line(self) -> str:
+        """``failed: <input>: <problem>``, the path once."""
+        return f"failed: {self.input}: {self.problem}"
+
     def json_line(self) -> dict[str, Any]:
         """The line `casefile explain --json` prints (schemas/explain_line.schema.json)."""
         line: dict[str, Any] = {"input": self.input, "outcome": self.outcome, "case_id": self.case_id,
@@ -119,9 +151,12 @@ class BatchSummary:
     outcomes: list[Outcome] = field(default_factory=list)
     interrupted: bool = False
 
-    def text(self) -> str:
+    def text(self, *, list_failures: bool = True) -> str:
+        """The counts; with ``list_failures``, one line per failed input (leave them out when they were
+        already printed as they happened)."""
         lines = [f"recorded {self.recorded}, skipped as already recorded {self.skipped}, failed {len(self.failed)}"]
-        lines += [f"  failed: {name}: {why}" for name, why in self.failed]
+        if list_failures:
+            lines += ["  " + Outcome(name, "failed", reason=why).line() for name, why in self.failed]
         if self.interrupted:
             lines.append("  interrupted: re-run the same command to finish; recorded cases are kept")
         return "\n".join(lines)
@@ -149,20 +184,42 @@ def _file_digest(path: Path) -> str | None:
         return None
 
 
-def _display_and_overlays(scan: Any, maps: dict[str, Any]) -> tuple[bytes, dict[str, bytes]]:
+def _display_and_overlays(scan: Scan, maps: dict[str, np.ndarray]) -> tuple[bytes, dict[str, bytes]]:
     from casefile.sheet.colours import overlay, png_bytes
 
     display = png_bytes(scan.display)
     return display, {m: png_bytes(overlay(scan.display, arr)) for m, arr in maps.items()}
 
 
+def digest_name(file_sha256: str | None) -> str:
+    """What a record names an input by when its base name is withheld: ``sha256:`` + 16 hex digits."""
+    return f"sha256:{file_sha256[:16]}" if file_sha256 else WITHHELD
+
+
+def _withhold(text: str, path: Path, name: str) -> str:
+    """``text`` with the input's path, base name and stem replaced by ``name`` (for failure reasons)."""
+    for part in (str(path), path.name, path.stem):
+        if len(part) >= 3:
+            text = text.replace(part, name)
+    return text
+
+
 def record_failure(ledger: Ledger, path: str | os.PathLike[str], reason: str, *, stage: str,
-                   loaded: Any = None, settings_hash: str | None = None) -> Outcome:
-    """Append a failed-attempt entry for an input that could not be recorded as a case."""
+                   loaded: LoadedModel | None = None, settings_hash: str | None = None,
+                   by_digest: bool = False) -> Outcome:
+    """Append a failed-attempt entry for an input that could not be recorded as a case.
+
+    ``by_digest``: the entry names the file by its digest, and its name is taken out of ``reason``.
+    """
     p = Path(path)
-    body: dict[str, Any] = {"attempted_at": utc_now(), "file_name": p.name or str(p),
-                            "file_sha256": _file_digest(p) if p.is_file() else None,
-                            "stage": stage, "reason": reason, "software": software_versions()}
+    file_sha256 = _file_digest(p) if p.is_file() else None
+    name = p.name or str(p)
+    stored_reason = reason
+    if by_digest:
+        name = digest_name(file_sha256)
+        stored_reason = _withhold(reason, p, name)
+    body: dict[str, Any] = {"attempted_at": utc_now(), "file_name": name, "file_sha256": file_sha256,
+                            "stage": stage, "reason": stored_reason, "software": software_versions()}
     if loaded is not None:
         body["model"] = {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest}
         body["settings_digest"] = settings_hash
@@ -170,7 +227,7 @@ def record_failure(ledger: Ledger, path: str | os.PathLike[str], reason: str, *,
     return Outcome(str(path), "failed", seq=entry.seq, hash=entry.hash, reason=reason)
 
 
-def explain_scan(scan: Any, loaded: Any, settings: dict[str, Any], *, target: int | None = None,
+def explain_scan(scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *, target: int | None = None,
                  source: str = "casefile") -> CaseRecord:
     """Run the model and the explanation methods on one scan and build its case record (no ledger)."""
     from casefile import explain
@@ -184,24 +241,27 @@ def explain_scan(scan: Any, loaded: Any, settings: dict[str, Any], *, target: in
                  overlays=overlays, source=source)
 
 
-def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: RunSettings | None = None,
+def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: LoadedModel, run: RunSettings | None = None,
                 *, key: str | None = None, sheet_dir: str | os.PathLike[str] | None = None,
                 target: int | None = None, settings: dict[str, Any] | None = None) -> Outcome:
     """One input end to end. The case and its blobs are appended in one transaction, or not at all.
 
-    ``settings`` is ``run.resolve(loaded)`` when the caller has it already (a batch resolves it once).
+    ``settings`` is ``preflight(loaded, run)`` when the caller has it already (a batch checks once);
+    otherwise the run is checked here, before anything is read or written.
     """
     from casefile.imaging import load
 
     run = (run or RunSettings()).with_limits()
-    settings = settings if settings is not None else run.resolve(loaded)
+    settings = settings if settings is not None else preflight(loaded, run)
+    by_digest = run.names_by_digest(loaded)
     try:
         scan = load(path, frame=run.frame, key=key, window=loaded.card["windowing"], uid_policy=run.uid_policy,
                     max_pixels=run.max_pixels, max_file_pixels=run.max_file_pixels)
     except CasefileError as exc:
         return record_failure(ledger, path, str(exc), stage="load", loaded=loaded,
-                              settings_hash=settings_digest(settings))
-    return _record_scan(ledger, str(path), scan, loaded, settings, target=target, sheet_dir=sheet_dir)
+                              settings_hash=settings_digest(settings), by_digest=by_digest)
+    return _record_scan(ledger, str(path), scan, loaded, settings, target=target, sheet_dir=sheet_dir,
+                        by_digest=by_digest)
 
 
 def _skipped(ledger: Ledger, name: str, case_id: str, sheet_dir: str | os.PathLike[str] | None) -> Outcome:
@@ -213,30 +273,36 @@ def _skipped(ledger: Ledger, name: str, case_id: str, sheet_dir: str | os.PathLi
     return out
 
 
-def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: dict[str, Any], *,
-                 target: int | None, sheet_dir: str | os.PathLike[str] | None) -> Outcome:
+def _record_scan(ledger: Ledger, name: str, scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *,
+                 target: int | None, sheet_dir: str | os.PathLike[str] | None, by_digest: bool = False) -> Outcome:
     """A loaded scan: skip it when this run is recorded already, else explain, append and draw its sheet."""
     s_hash = settings_digest(settings)
     existing = ledger.find_case_id(scan.file_sha256, scan.frame, loaded.digest, s_hash)
     if existing:
         return _skipped(ledger, name, existing, sheet_dir)
     base = Path(name).name
+    if by_digest:
+        base = digest_name(scan.file_sha256)
+        scan = replace(scan, file_name=base)
+
+    def failed(reason: str, stage: str) -> Outcome:
+        return record_failure(ledger, name, reason, stage=stage, loaded=loaded, settings_hash=s_hash,
+                              by_digest=by_digest)
+
     try:
         rec = explain_scan(scan, loaded, settings, target=target,
                            source="caller" if target is not None else "casefile")
     except CasefileError as exc:
-        return record_failure(ledger, name, str(exc), stage="explain", loaded=loaded, settings_hash=s_hash)
+        return failed(str(exc), "explain")
     except (RuntimeError, ValueError) as exc:  # torch refuses something about this model or input
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        reason = f"{base}: the explanation could not be computed: {first}"
-        return record_failure(ledger, name, reason, stage="explain", loaded=loaded, settings_hash=s_hash)
+        return failed(f"{base}: the explanation could not be computed: {first}", "explain")
     try:
         entry = ledger.append("case", rec.body, blobs=rec.blobs)
     except ValidationError as exc:
         if isinstance(exc, DuplicateCaseError):  # another process recorded it a moment ago
             return _skipped(ledger, name, rec.case_id, sheet_dir)
-        reason = f"{base}: the case record was refused: {exc}"
-        return record_failure(ledger, name, reason, stage="record", loaded=loaded, settings_hash=s_hash)
+        return failed(f"{base}: the case record was refused: {exc}", "record")
     out = Outcome(name, "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
     if sheet_dir is not None:
         out.sheet = str(write_sheet(ledger, rec.case_id, sheet_dir))
@@ -244,7 +310,8 @@ def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: di
 
 
 def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str] | None = None, *,
-                path: str | os.PathLike[str] | None = None, **opts: Any) -> Path:
+                path: str | os.PathLike[str] | None = None, page_size: str = "A4",
+                fixed_time: str | None = None) -> Path:
     """Render the case sheet to ``path``, or to ``folder``/<case_id>.pdf; written whole, then renamed into
     place, so a reader never sees half a PDF."""
     from casefile.sheet import sheet_for_case
@@ -254,14 +321,60 @@ def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str] | N
         target.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"{target.parent}: cannot create the sheet folder ({exc.strerror or exc})") from None
-    return write_atomic(target, sheet_for_case(ledger, case_id, **opts))
+    return write_atomic(target, sheet_for_case(ledger, case_id, page_size=page_size, fixed_time=fixed_time))
 
 
-def preflight(loaded: Any, run: RunSettings) -> dict[str, Any]:
+def _whole(name: str, value: object) -> int | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise UsageError(f"{name} {value!r}: expected a whole number of at least 1")
+    return value
+
+
+def check_occlusion_grid(loaded: LoadedModel, run: RunSettings) -> None:
+    """Refuse an occlusion patch or stride that cannot work on this model's input, before any input."""
+    spec = loaded.card["input"]
+    width, height = spec["width"], spec["height"]
+    card = loaded.card_name
+    patch, stride = _whole("--patch", run.patch), _whole("--stride", run.stride)
+    side = min(width, height)
+    if patch is not None and patch > side:
+        raise UsageError(f"--patch {patch}: larger than the model input ({width} x {height} px, from {card}); "
+                         f"choose at most {side}")
+    if stride is not None and stride > side:
+        raise UsageError(f"--stride {stride}: larger than the model input ({width} x {height} px, from {card}); "
+                         f"choose at most {side}")
+    used = patch or max(2, round(side / 7))
+    if stride is not None and stride > used:
+        given = f"--patch {used}" if patch else f"the default patch of {used} px"
+        raise UsageError(f"--stride {stride}: larger than {given}, so pixels between patches would never be "
+                         "covered; choose a stride no larger than the patch")
+
+
+def _check_fill(fill: object) -> None:
+    if fill is None or fill in ("mean", "blur"):
+        return
+    if isinstance(fill, bool) or not isinstance(fill, int | float) or not math.isfinite(float(fill)):
+        raise UsageError(f"--fill {fill!r}: expected a finite number, 'mean' or 'blur'")
+
+
+def preflight(loaded: LoadedModel, run: RunSettings) -> dict[str, Any]:
     """Refuse, before any input is touched, a run that cannot work for this model at all; return the
     resolved settings (unknown explanation settings fail here, once, not per input)."""
+    from casefile.explain import METHODS
     from casefile.explain.gradcam import hookable_layer
 
+    unknown = [m for m in run.methods if m not in METHODS]
+    if unknown or not run.methods:
+        raise UsageError(f"--methods: unknown method {', '.join(map(repr, unknown)) or 'none'}; choose from "
+                         f"{', '.join(METHODS)}")
+    if run.name_policy is not None and run.name_policy not in NAME_POLICIES:
+        raise UsageError(f"--name-policy {run.name_policy!r}: choose {' or '.join(NAME_POLICIES)}")
+    if run.frame is not None and (isinstance(run.frame, bool) or not isinstance(run.frame, int) or run.frame < 0):
+        raise UsageError(f"--frame {run.frame!r}: expected a frame number from 0")
+    check_occlusion_grid(loaded, run)
+    _check_fill(run.fill)
     settings = run.resolve(loaded)
     if "gradcam" in run.methods:
         try:
@@ -272,15 +385,28 @@ def preflight(loaded: Any, run: RunSettings) -> dict[str, Any]:
     return settings
 
 
-def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: Any,
+def check_inputs(inputs: Sequence[str | os.PathLike[str]]) -> None:
+    """Refuse a path given on the command line that does not exist (a typo), before anything is recorded."""
+    for p in inputs:
+        if not os.path.lexists(p):
+            raise InputError(f"{p}: no such file or folder; nothing was recorded")
+
+
+def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: LoadedModel,
                   run: RunSettings | None = None, *, key: str | None = None,
                   sheet_dir: str | os.PathLike[str] | None = None, progress: bool = True,
                   on_outcome: Callable[[Outcome], None] | None = None) -> BatchSummary:
-    """Every input in order; bad inputs are recorded as failed attempts and the batch goes on."""
+    """Every input in order; bad inputs are recorded as failed attempts and the batch goes on.
+
+    Everything that can be refused for the whole run (settings, missing paths) is refused first,
+    before any entry is written. ``on_outcome`` is called after each input; text it prints with
+    ``say`` goes above the progress bar.
+    """
     from tqdm import tqdm
 
     run = (run or RunSettings()).with_limits()
     settings = preflight(loaded, run)
+    check_inputs(inputs)
     files = list(iter_inputs(inputs))
     summary = BatchSummary()
     bar = tqdm(files, desc="explain", unit="case", file=sys.stderr, disable=not progress, dynamic_ncols=True)
@@ -303,8 +429,16 @@ def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], load
     return summary
 
 
-def record_case(ledger: Ledger | str, model: Any, input: Any, *, prediction: int | str | None = None,
-                run: RunSettings | None = None, key: str | None = None) -> Outcome:
+def say(line: str) -> None:
+    """Print one line on stderr above any progress bar (the bar is redrawn under it, never torn)."""
+    from tqdm import tqdm
+
+    tqdm.write(line, file=sys.stderr)
+
+
+def record_case(ledger: Ledger | str, model: LoadedModel, input: str | os.PathLike[str] | Scan, *,
+                prediction: int | str | None = None, run: RunSettings | None = None,
+                key: str | None = None) -> Outcome:
     """Wrap an inference you already run: record ``input`` (a path or a Scan) with ``model``.
 
     ``model`` is a LoadedModel (``casefile.models.load_model``). ``prediction`` is the label (or
@@ -324,5 +458,7 @@ def record_case(ledger: Ledger | str, model: Any, input: Any, *, prediction: int
                 raise InputError(f"prediction index {target} is outside 0..{len(model.labels) - 1}")
     if isinstance(input, str | os.PathLike):
         return explain_one(led, input, model, run, key=key, target=target)
-    settings = (run or RunSettings()).resolve(model)
-    return _record_scan(led, input.file_name, input, model, settings, target=target, sheet_dir=None)
+    run = run or RunSettings()
+    settings = preflight(model, run)
+    return _record_scan(led, input.file_name, input, model, settings, target=target, sheet_dir=None,
+                        by_digest=run.names_by_digest(model))

@@ -4,12 +4,17 @@ from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from casefile.canonical import canonical_bytes, json_ready
-from casefile.cautions import CAUTION_TEXT
+from casefile.cautions import CAUTION_TEXT, WEIGHTS_NOT_PINNED
 from casefile.ledger.derive import run_key
 from casefile.software import software_versions
+
+if TYPE_CHECKING:  # types only: the record is plain data and imports no model code at run time
+    from casefile.explain import Explanation
+    from casefile.imaging import Scan
+    from casefile.models import LoadedModel
 
 
 @dataclass(frozen=True)
@@ -44,12 +49,18 @@ def _roi(card: dict[str, Any]) -> dict[str, Any]:
     return {"roi": roi} if isinstance(roi, dict) and roi.get("rule") else {}
 
 
+def _identity(loaded: LoadedModel) -> dict[str, Any]:
+    """Whether the card pinned these weights, and the model's notes (the pin note first when it did not)."""
+    notes = ([] if loaded.weights_pinned else [WEIGHTS_NOT_PINNED]) + list(loaded.notes)
+    return {"weights_pinned": bool(loaded.weights_pinned), **({"notes": notes} if notes else {})}
+
+
 def _top(scores: dict[str, Any], n: int = 3) -> list[dict[str, Any]]:
     ranked = sorted(((k, v) for k, v in scores.items() if v is not None), key=lambda kv: (-kv[1], kv[0]))
     return [{"label": k, "p": v} for k, v in ranked[:n]]
 
 
-def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any], recorded_at: str,
+def build(scan: Scan, loaded: LoadedModel, explanation: Explanation, *, settings: dict[str, Any], recorded_at: str,
           display_png: bytes, overlays: dict[str, bytes], source: str = "casefile") -> CaseRecord:
     """The case body for ``scan`` explained by ``explanation`` under ``settings`` (all plain data)."""
     exp = explanation.to_record()
@@ -76,7 +87,7 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
         "input": inp,
         "model": {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest,
                   "card_digest": loaded.card_digest, "labels": list(loaded.labels),
-                  "layer": settings.get("layer"), **_roi(loaded.card)},
+                  "layer": settings.get("layer"), **_roi(loaded.card), **_identity(loaded)},
         "preprocessing": loaded.preprocessing_record(scan),
         "settings": settings,
         "settings_digest": s_digest,

@@ -11,6 +11,8 @@ import hashlib
 import json
 import os
 import re
+import sqlite3
+import urllib.parse
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -80,10 +82,61 @@ class CaseHistory:
         return sorted([self.entry, *self.amendments, *self.reviews], key=lambda e: e.seq)
 
 
+SQLITE_PREFIX = "sqlite:///"
+STORE_FORMS = "a SQLite file path, or a URL sqlite:///relative/path.db or sqlite:////absolute/path.db"
+_SQLITE_MAGIC = b"SQLite format 3\x00"  # the first 16 bytes of every SQLite 3 database file
+_ENTRY_COLUMNS = {"seq", "kind", "body", "prev_hash", "hash"}
+CASE_PREFIX_MIN = 8  # characters after "cf-" (or of an id without it) that name a case uniquely enough
+
+
 def _url(store: str) -> str:
     if "://" in store:
         return store
-    return "sqlite:///" + os.path.abspath(store)
+    return SQLITE_PREFIX + os.path.abspath(store)
+
+
+def _has_content(path: str) -> bool:
+    """The file holds a database already (in itself, or still only in its write-ahead log)."""
+    return any(os.path.exists(p) and os.path.getsize(p) > 0 for p in (path, path + "-wal"))
+
+
+def check_ledger_file(path: str, *, create: bool) -> None:
+    """Refuse, without changing a byte of it, a file that is not a casefile ledger.
+
+    Read first with a read-only connection (no journal-mode switch, no table created): a file that is
+    not SQLite, or an SQLite database of another program (tables but no ``entries`` table of ours), is
+    refused in one line. An absent or empty file is a new ledger when ``create``, else refused.
+    """
+    if not _has_content(path):
+        if not create:
+            raise LedgerError(f"{path}: no ledger here (run `casefile init` first)")
+        return
+    if os.path.isdir(path):
+        raise LedgerError(f"{path}: is a folder, not a ledger file")
+    try:
+        with open(path, "rb") as f:
+            head = f.read(len(_SQLITE_MAGIC))
+    except OSError as exc:
+        raise LedgerError(f"{path}: cannot be read ({exc.strerror or exc})") from None
+    if head and head != _SQLITE_MAGIC:
+        raise LedgerError(f"{path}: not a casefile ledger (the file is not an SQLite database); nothing was changed")
+    try:
+        conn = sqlite3.connect(f"file:{urllib.parse.quote(path)}?mode=ro", uri=True, timeout=60)
+        try:
+            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            columns = {r[1] for r in conn.execute("PRAGMA table_info(entries)")} if "entries" in tables else set()
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError as exc:
+        raise LedgerError(f"{path}: cannot open ledger: {exc}") from None
+    if not tables:
+        if not create:
+            raise LedgerError(f"{path}: no ledger here (an empty database; run `casefile init` first)")
+        return
+    if not _ENTRY_COLUMNS <= columns:
+        shown = ", ".join(sorted(tables)[:5]) + (" …" if len(tables) > 5 else "")
+        raise LedgerError(f"{path}: an SQLite database but not a casefile ledger (it holds {shown}); "
+                          "nothing was changed")
 
 
 class Store:
@@ -103,14 +156,14 @@ class Store:
             raise LedgerError(f"synchronous must be FULL or NORMAL, not {synchronous!r}")
         self.synchronous = synchronous.upper()
         self.url = _url(url)
-        if not self.url.startswith("sqlite"):
-            raise LedgerError(f"{url}: only SQLite ledgers are supported in this release")
-        path = self.url[len("sqlite:///"):]
-        if not create and not os.path.exists(path):
-            raise LedgerError(f"{path}: no ledger here (run `casefile init` first)")
+        if not self.url.startswith(SQLITE_PREFIX) or self.url.endswith(("/:memory:", ":///")):
+            raise LedgerError(f"{url}: not a ledger this release can open; give {STORE_FORMS} "
+                              "(other databases are not supported yet)")
+        path = self.url[len(SQLITE_PREFIX):].split("?", 1)[0]
         parent = os.path.dirname(path)
         if parent and not os.path.isdir(parent):
             raise LedgerError(f"{path}: folder {parent} does not exist")
+        check_ledger_file(path, create=create)
         self.path = path
         self.engine = self._make_engine()
         try:
@@ -330,6 +383,31 @@ class Store:
         with self.engine.connect() as conn:
             r = conn.execute(select(t.cases.c.case_id).where(t.cases.c.run_key == key)).first()
         return r[0] if r else None
+
+    def resolve_case_id(self, text: str) -> str:
+        """The full case id that ``text`` names: the id itself, or a unique prefix of at least
+        CASE_PREFIX_MIN characters after ``cf-`` (e.g. ``cf-1a2b3c4d``). A prefix that is too short,
+        matches no case or matches several is refused in one line (the last naming a few matches)."""
+        text = text.strip()
+        c = t.cases.c
+        with self.engine.connect() as conn:
+            if conn.execute(select(c.case_id).where(c.case_id == text)).first() is not None:
+                return text
+            body = text[3:] if text.startswith("cf-") else text
+            if len(body) < CASE_PREFIX_MIN:
+                raise LedgerError(f"{self.path}: no case {text!r}; a shortened case id needs at least "
+                                  f"{CASE_PREFIX_MIN} characters after 'cf-'")
+            # a range on the indexed column (a LIKE pattern would read '_' in an id as a wildcard)
+            found = [r[0] for r in conn.execute(
+                select(c.case_id).where(c.case_id >= text, c.case_id < text + "\U0010ffff")
+                .order_by(c.case_id).limit(6))]
+        if not found:
+            raise LedgerError(f"{self.path}: no case {text!r} (no case id starts so)")
+        if len(found) > 1:
+            more = ", …" if len(found) > 5 else ""
+            raise LedgerError(f"{self.path}: {text!r} is ambiguous: it starts {'more than 5' if more else len(found)} "
+                              f"case ids ({', '.join(found[:5])}{more}); give more characters")
+        return found[0]
 
     def case(self, case_id: str) -> CaseHistory:
         """The case entry with its amendments and reviews, in seq order."""
