@@ -13,13 +13,10 @@ import json
 import os
 import subprocess
 import sys
-import warnings
 from pathlib import Path
 
 import numpy as np
 import pytest
-import torch
-from PIL import Image
 from pypdf import PdfReader
 
 from casefile.cautions import WEIGHTS_NOT_PINNED
@@ -27,7 +24,6 @@ from casefile.ledger import Ledger
 from casefile.models import load_model
 from casefile.models.loading import ONE_AT_A_TIME
 from casefile.pipeline import RunSettings, record_case, write_sheet
-from demo_cases.nets import tiny_net
 from demo_cases.train import ENTRY_POINT
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -37,31 +33,6 @@ RUN = RunSettings(patch=8, stride=4)
 
 def _sha(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
-
-
-@pytest.fixture(scope="module")
-def tiny(tmp_path_factory) -> dict[str, Path]:
-    """A seeded TinyNet on 32 x 32 grey pictures: state dict, a .pt2 exported at batch one, an unpinned
-    card, and two inputs, one of them named like a person."""
-    d = tmp_path_factory.mktemp("identity")
-    torch.manual_seed(11)
-    net = tiny_net(width=2).eval()
-    torch.save(net.state_dict(), d / "tiny.pt")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        torch.export.save(torch.export.export(net, (torch.zeros(1, 1, 32, 32),)), str(d / "tiny.pt2"))
-    card = {"name": "tiny-identity", "version": "1", "labels": ["sound", "porosity", "shrinkage", "crack"],
-            "input": {"width": 32, "height": 32, "channels": 1}, "normalisation": {"mean": [0.5], "std": [0.25]},
-            "windowing": "file", "layer": "features.block3", "roi": {"rule": "border", "pixels": 4},
-            "intended_use": "tests only", "entry_point": ENTRY_POINT, "entry_point_args": {"width": 2},
-            "weights": "tiny.pt"}
-    (d / "card.json").write_text(json.dumps(card, indent=2) + "\n")
-    rng = np.random.default_rng(5)
-    inputs = d / "inputs"
-    inputs.mkdir()
-    for name in ("part_0001.png", "smith_john_1961.png"):
-        Image.fromarray(rng.integers(0, 255, (32, 32), dtype=np.uint8)).save(inputs / name)
-    return {"dir": d, "weights": d / "tiny.pt", "pt2": d / "tiny.pt2", "card": d / "card.json", "inputs": inputs}
 
 
 def _env(tmp: Path) -> dict[str, str]:
