@@ -1,4 +1,8 @@
-"""load_model: the three ways of loading give the same model; mismatched or broken cards are refused."""
+"""load_model: the three ways of loading give the same model; mismatched or broken cards are refused.
+
+Outside sources: hashlib's SHA-256 (FIPS 180-4) for the digests; torch's own loaders (torch.load with
+weights_only, torch.jit, torch.export) as the reference for what each file form holds.
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,8 @@
-"""`casefile explain` over real batches: bad inputs, JSON lines, resume after SIGINT and SIGKILL."""
+"""`casefile explain` over real batches: bad inputs, JSON lines, resume after SIGINT and SIGKILL.
+
+Outside sources: POSIX signals (SIGINT may be caught, SIGKILL cannot), SQLite's durability of a
+committed transaction; the explain_line schema (JSON Schema, jsonschema) for the JSON lines.
+"""
 
 from __future__ import annotations
 
