@@ -156,10 +156,10 @@ class Store:
             raise LedgerError(f"synchronous must be FULL or NORMAL, not {synchronous!r}")
         self.synchronous = synchronous.upper()
         self.url = _url(url)
-        if not self.url.startswith(SQLITE_PREFIX) or self.url.endswith(("/:memory:", ":///")):
+        if not self.url.startswith(SQLITE_PREFIX) or self.url.endswith(("/:memory:", ":///")) or "?" in self.url:
             raise LedgerError(f"{url}: not a ledger this release can open; give {STORE_FORMS} "
                               "(other databases are not supported yet)")
-        path = self.url[len(SQLITE_PREFIX):].split("?", 1)[0]
+        path = self.url[len(SQLITE_PREFIX):]
         parent = os.path.dirname(path)
         if parent and not os.path.isdir(parent):
             raise LedgerError(f"{path}: folder {parent} does not exist")

@@ -75,7 +75,7 @@ def test_open_without_create_needs_a_ledger(tmp_path):
 
 
 @pytest.mark.parametrize("url", ["postgresql://host/db", "sqlite://", "sqlite:///:memory:",
-                                 "sqlite+pysqlite:///x.db"])
+                                 "sqlite+pysqlite:///x.db", "sqlite:///x.db?mode=ro"])
 def test_only_sqlite_files_are_accepted_and_the_message_says_which_forms(url):
     with pytest.raises(LedgerError, match="sqlite:///relative/path.db"):
         Ledger(url)
