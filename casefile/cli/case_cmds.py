@@ -153,7 +153,8 @@ def register(sub: argparse._SubParsersAction) -> None:
                          "patients). Default: the card's record_file_name (false means digest), else base-name; "
                          "digest wins when either asks for it")
     sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
-    sp.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+    sp.add_argument("-q", "--quiet", action="store_true",
+                    help="no progress bar (there is none when stderr is not a terminal)")
     sp.add_argument("inputs", nargs="+", metavar="INPUT", help="image files or folders (searched recursively)")
 
     sp = command(sub, "sheet", cmd_sheet, "render the PDF case sheet of one or more cases", json_=False,
