@@ -1,7 +1,7 @@
 """The store: open a ledger database, append entries with their blobs in one transaction, read them back.
 
-This is the bottom of the ledger package: it imports no other ledger module but the tables and the
-derived-row rules. Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
+This is the bottom of the ledger package: it imports no other ledger module but the tables, the
+derived-row rules and the location check. Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
 into the ``Ledger`` users open.
 """
 
@@ -9,10 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import re
-import sqlite3
-import urllib.parse
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -27,6 +24,7 @@ from casefile.canonical import canonical_bytes, parse
 from casefile.errors import DuplicateCaseError, LedgerError, ValidationError
 from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
+from casefile.ledger.location import check_ledger_file, locate
 
 READ_CHUNK = 2000
 # One plain INSERT per table at the driver level (qmark style, SQLite): appends are the hot path and
@@ -82,61 +80,7 @@ class CaseHistory:
         return sorted([self.entry, *self.amendments, *self.reviews], key=lambda e: e.seq)
 
 
-SQLITE_PREFIX = "sqlite:///"
-STORE_FORMS = "a SQLite file path, or a URL sqlite:///relative/path.db or sqlite:////absolute/path.db"
-_SQLITE_MAGIC = b"SQLite format 3\x00"  # the first 16 bytes of every SQLite 3 database file
-_ENTRY_COLUMNS = {"seq", "kind", "body", "prev_hash", "hash"}
 CASE_PREFIX_MIN = 8  # characters after "cf-" (or of an id without it) that name a case uniquely enough
-
-
-def _url(store: str) -> str:
-    if "://" in store:
-        return store
-    return SQLITE_PREFIX + os.path.abspath(store)
-
-
-def _has_content(path: str) -> bool:
-    """The file holds a database already (in itself, or still only in its write-ahead log)."""
-    return any(os.path.exists(p) and os.path.getsize(p) > 0 for p in (path, path + "-wal"))
-
-
-def check_ledger_file(path: str, *, create: bool) -> None:
-    """Refuse, without changing a byte of it, a file that is not a casefile ledger.
-
-    Read first with a read-only connection (no journal-mode switch, no table created): a file that is
-    not SQLite, or an SQLite database of another program (tables but no ``entries`` table of ours), is
-    refused in one line. An absent or empty file is a new ledger when ``create``, else refused.
-    """
-    if not _has_content(path):
-        if not create:
-            raise LedgerError(f"{path}: no ledger here (run `casefile init` first)")
-        return
-    if os.path.isdir(path):
-        raise LedgerError(f"{path}: is a folder, not a ledger file")
-    try:
-        with open(path, "rb") as f:
-            head = f.read(len(_SQLITE_MAGIC))
-    except OSError as exc:
-        raise LedgerError(f"{path}: cannot be read ({exc.strerror or exc})") from None
-    if head and head != _SQLITE_MAGIC:
-        raise LedgerError(f"{path}: not a casefile ledger (the file is not an SQLite database); nothing was changed")
-    try:
-        conn = sqlite3.connect(f"file:{urllib.parse.quote(path)}?mode=ro", uri=True, timeout=60)
-        try:
-            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-            columns = {r[1] for r in conn.execute("PRAGMA table_info(entries)")} if "entries" in tables else set()
-        finally:
-            conn.close()
-    except sqlite3.DatabaseError as exc:
-        raise LedgerError(f"{path}: cannot open ledger: {exc}") from None
-    if not tables:
-        if not create:
-            raise LedgerError(f"{path}: no ledger here (an empty database; run `casefile init` first)")
-        return
-    if not _ENTRY_COLUMNS <= columns:
-        shown = ", ".join(sorted(tables)[:5]) + (" …" if len(tables) > 5 else "")
-        raise LedgerError(f"{path}: an SQLite database but not a casefile ledger (it holds {shown}); "
-                          "nothing was changed")
 
 
 class Store:
@@ -155,14 +99,7 @@ class Store:
         if synchronous.upper() not in ("FULL", "NORMAL"):
             raise LedgerError(f"synchronous must be FULL or NORMAL, not {synchronous!r}")
         self.synchronous = synchronous.upper()
-        self.url = _url(url)
-        if not self.url.startswith(SQLITE_PREFIX) or self.url.endswith(("/:memory:", ":///")) or "?" in self.url:
-            raise LedgerError(f"{url}: not a ledger this release can open; give {STORE_FORMS} "
-                              "(other databases are not supported yet)")
-        path = self.url[len(SQLITE_PREFIX):]
-        parent = os.path.dirname(path)
-        if parent and not os.path.isdir(parent):
-            raise LedgerError(f"{path}: folder {parent} does not exist")
+        self.url, path = locate(url)
         check_ledger_file(path, create=create)
         self.path = path
         self.engine = self._make_engine()
