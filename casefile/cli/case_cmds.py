@@ -6,7 +6,7 @@ import argparse
 import sys
 from typing import TYPE_CHECKING
 
-from casefile.cli.common import command, err, jsonl, non_negative_int, open_ledger, positive_int
+from casefile.cli.common import CASE_ID_HELP, command, err, jsonl, non_negative_int, open_ledger, positive_int
 
 if TYPE_CHECKING:
     from casefile.pipeline import Outcome, RunSettings
@@ -159,14 +159,14 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "sheet", cmd_sheet, "render the PDF case sheet of one or more cases", json_=False,
                  check=_sheet_usage)
-    sp.add_argument("case_ids", nargs="+", metavar="CASE_ID")
+    sp.add_argument("case_ids", nargs="+", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("-o", "--output", metavar="FILE", help="output file for one case (default CASE_ID.pdf)")
     sp.add_argument("--dir", metavar="DIR", help="write each sheet as DIR/CASE_ID.pdf")
     sp.add_argument("--page-size", choices=["A4", "letter"], default="A4")
 
     sp = command(sub, "export", cmd_export, "wrap a case sheet as a DICOM Encapsulated PDF, to a file or an "
                  "archive", json_=False, check=_export_usage)
-    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     where = sp.add_mutually_exclusive_group(required=True)
     where.add_argument("--dicom", metavar="FILE.dcm", help="write the DICOM object here")
     where.add_argument("--pacs", metavar="HOST:PORT", help="send it to this archive with C-STORE")

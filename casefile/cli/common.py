@@ -19,6 +19,8 @@ STORE_HELP = ("the ledger: a SQLite file path (default $CASEFILE_STORE, else ./c
               "sqlite:///relative/path.db or sqlite:////absolute/path.db; SQLite is the only database this "
               "release opens")
 
+CASE_ID_HELP = "a case id, or a unique prefix of one (at least 8 characters after 'cf-')"
+
 Handler = Callable[[argparse.Namespace], int]
 Check = Callable[[argparse.Namespace], "str | None"]
 
