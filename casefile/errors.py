@@ -21,12 +21,21 @@ class DuplicateCaseError(ValidationError):
     """The ledger already holds a case for this input, model and settings (or this case id); nothing was written."""
 
 
+class UsageError(CasefileError):
+    """An option or setting cannot work as given (e.g. an occlusion patch larger than the model input);
+    refused before anything is read or written. The command line exits 2 with its usage line."""
+
+
 class LedgerError(CasefileError):
     """The ledger cannot be opened or written as asked."""
 
 
 class ExplainError(CasefileError):
     """An explanation method cannot run with the settings given."""
+
+
+class OutputError(CasefileError):
+    """A file cannot be written where it was asked for (folder missing, no permission, disk full)."""
 
 
 class ExchangeError(CasefileError):

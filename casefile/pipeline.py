@@ -8,66 +8,34 @@ import sys
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from casefile.errors import CasefileError, DuplicateCaseError, ExplainError, InputError, ValidationError
+from casefile.errors import (
+    CasefileError,
+    DuplicateCaseError,
+    InputError,
+    OutputError,
+    ValidationError,
+)
+from casefile.files import write_atomic
 from casefile.ledger import Ledger, utc_now
-from casefile.record import CaseRecord, build, settings_digest, software_versions
+from casefile.record import CaseRecord, build, settings_digest
+from casefile.runs import (
+    DEFAULT_METHODS,
+    NAME_POLICIES,
+    NamePolicy,
+    RunSettings,
+    check_inputs,
+    check_occlusion_grid,
+    preflight,
+)
+from casefile.software import software_versions
 
-DEFAULT_METHODS = ("gradcam", "occlusion", "gradient")
+if TYPE_CHECKING:  # types only; the heavy rooms are imported where they are first needed
+    import numpy as np
 
-
-@dataclass(frozen=True)
-class RunSettings:
-    """What a run may vary. Together with the input and model digests it decides whether a case is new.
-
-    ``patch``/``stride`` of None take about a seventh of the smaller model-input side (32 and 16 on a
-    224-pixel input, the explain room's defaults) so small models get a useful occlusion grid too.
-    ``max_pixels``/``max_file_pixels`` of None take the site settings' input size limits
-    (casefile.imaging.limits). They decide only whether an input is read at all, so they are not part
-    of the stored settings: a case recorded under one limit is the same case under another.
-    """
-
-    methods: tuple[str, ...] = DEFAULT_METHODS
-    layer: str | None = None
-    patch: int | None = None
-    stride: int | None = None
-    fill: float | str | None = None
-    explain: dict[str, Any] = field(default_factory=dict)
-    frame: int | None = None
-    uid_policy: str = "keep-uids"
-    max_pixels: int | None = None
-    max_file_pixels: int | None = None
-
-    def with_limits(self) -> RunSettings:
-        """These settings with the input size limits filled in from the site settings (read once, here,
-        so that a malformed site file is refused before anything is recorded)."""
-        from casefile.imaging import resolve_limits
-
-        limits = resolve_limits(self.max_pixels, self.max_file_pixels)
-        return replace(self, max_pixels=limits.max_pixels, max_file_pixels=limits.max_file_pixels)
-
-    def resolve(self, loaded: Any) -> dict[str, Any]:
-        """The full, stored settings for this model: every default filled in."""
-        from casefile.explain.run import full_settings
-
-        side = min(loaded.card["input"]["width"], loaded.card["input"]["height"])
-        patch = self.patch or max(2, round(side / 7))
-        stride = self.stride or max(1, patch // 2)
-        overrides = {**self.explain, "occlusion_patch": patch, "occlusion_stride": stride}
-        if "flag_policy" in loaded.card:  # the card's flags-or-notes choices, over the explain defaults
-            overrides["flag_policy"] = {**loaded.card["flag_policy"], **self.explain.get("flag_policy", {})}
-        if self.fill is not None:
-            overrides["occlusion_fill"] = self.fill
-        return {
-            "methods": list(self.methods),
-            "layer": self.layer or loaded.layer,
-            "explain": full_settings(overrides),
-            "windowing": loaded.card["windowing"],
-            "uid_policy": self.uid_policy,
-            "frame": self.frame,
-            "preprocessing": loaded.preprocessing_record(),
-        }
+    from casefile.imaging import Scan
+    from casefile.models import LoadedModel
 
 
 @dataclass
@@ -82,6 +50,19 @@ class Outcome:
     reason: str | None = None
     body: dict[str, Any] | None = None
     sheet: str | None = None
+
+    @property
+    def problem(self) -> str:
+        """The reason without the file name it starts with (for lines that name the input already)."""
+        why = self.reason or "unknown"
+        for lead in (f"{self.input}: ", f"{Path(self.input).name}: "):
+            if why.startswith(lead):
+                return why[len(lead):]
+        return why
+
+    def line(self) -> str:
+        """``failed: <input>: <problem>``, the path once."""
+        return f"failed: {self.input}: {self.problem}"
 
     def json_line(self) -> dict[str, Any]:
         """The line `casefile explain --json` prints (schemas/explain_line.schema.json)."""
@@ -112,9 +93,12 @@ class BatchSummary:
     outcomes: list[Outcome] = field(default_factory=list)
     interrupted: bool = False
 
-    def text(self) -> str:
+    def text(self, *, list_failures: bool = True) -> str:
+        """The counts; with ``list_failures``, one line per failed input (leave them out when they were
+        already printed as they happened)."""
         lines = [f"recorded {self.recorded}, skipped as already recorded {self.skipped}, failed {len(self.failed)}"]
-        lines += [f"  failed: {name}: {why}" for name, why in self.failed]
+        if list_failures:
+            lines += ["  " + Outcome(name, "failed", reason=why).line() for name, why in self.failed]
         if self.interrupted:
             lines.append("  interrupted: re-run the same command to finish; recorded cases are kept")
         return "\n".join(lines)
@@ -142,20 +126,48 @@ def _file_digest(path: Path) -> str | None:
         return None
 
 
-def _display_and_overlays(scan: Any, maps: dict[str, Any]) -> tuple[bytes, dict[str, bytes]]:
+def _display_and_overlays(scan: Scan, maps: dict[str, np.ndarray]) -> tuple[bytes, dict[str, bytes]]:
     from casefile.sheet.colours import overlay, png_bytes
 
     display = png_bytes(scan.display)
     return display, {m: png_bytes(overlay(scan.display, arr)) for m, arr in maps.items()}
 
 
+WITHHELD = "(name withheld)"
+__all__ = ["DEFAULT_METHODS", "NAME_POLICIES", "BatchSummary", "NamePolicy", "Outcome", "RunSettings",
+           "check_inputs", "check_occlusion_grid", "digest_name", "explain_batch", "explain_one", "explain_scan",
+           "preflight", "record_case", "record_failure", "say", "write_sheet"]
+
+
+def digest_name(file_sha256: str | None) -> str:
+    """What a record names an input by when its base name is withheld: ``sha256:`` + 16 hex digits."""
+    return f"sha256:{file_sha256[:16]}" if file_sha256 else WITHHELD
+
+
+def _withhold(text: str, path: Path, name: str) -> str:
+    """``text`` with the input's path, base name and stem replaced by ``name`` (for failure reasons)."""
+    for part in (str(path), path.name, path.stem):
+        if len(part) >= 3:
+            text = text.replace(part, name)
+    return text
+
+
 def record_failure(ledger: Ledger, path: str | os.PathLike[str], reason: str, *, stage: str,
-                   loaded: Any = None, settings_hash: str | None = None) -> Outcome:
-    """Append a failed-attempt entry for an input that could not be recorded as a case."""
+                   loaded: LoadedModel | None = None, settings_hash: str | None = None,
+                   by_digest: bool = False) -> Outcome:
+    """Append a failed-attempt entry for an input that could not be recorded as a case.
+
+    ``by_digest``: the entry names the file by its digest, and its name is taken out of ``reason``.
+    """
     p = Path(path)
-    body: dict[str, Any] = {"attempted_at": utc_now(), "file_name": p.name or str(p),
-                            "file_sha256": _file_digest(p) if p.is_file() else None,
-                            "stage": stage, "reason": reason, "software": software_versions()}
+    file_sha256 = _file_digest(p) if p.is_file() else None
+    name = p.name or str(p)
+    stored_reason = reason
+    if by_digest:
+        name = digest_name(file_sha256)
+        stored_reason = _withhold(reason, p, name)
+    body: dict[str, Any] = {"attempted_at": utc_now(), "file_name": name, "file_sha256": file_sha256,
+                            "stage": stage, "reason": stored_reason, "software": software_versions()}
     if loaded is not None:
         body["model"] = {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest}
         body["settings_digest"] = settings_hash
@@ -163,7 +175,7 @@ def record_failure(ledger: Ledger, path: str | os.PathLike[str], reason: str, *,
     return Outcome(str(path), "failed", seq=entry.seq, hash=entry.hash, reason=reason)
 
 
-def explain_scan(scan: Any, loaded: Any, settings: dict[str, Any], *, target: int | None = None,
+def explain_scan(scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *, target: int | None = None,
                  source: str = "casefile") -> CaseRecord:
     """Run the model and the explanation methods on one scan and build its case record (no ledger)."""
     from casefile import explain
@@ -177,24 +189,27 @@ def explain_scan(scan: Any, loaded: Any, settings: dict[str, Any], *, target: in
                  overlays=overlays, source=source)
 
 
-def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: Any, run: RunSettings | None = None,
+def explain_one(ledger: Ledger, path: str | os.PathLike[str], loaded: LoadedModel, run: RunSettings | None = None,
                 *, key: str | None = None, sheet_dir: str | os.PathLike[str] | None = None,
                 target: int | None = None, settings: dict[str, Any] | None = None) -> Outcome:
     """One input end to end. The case and its blobs are appended in one transaction, or not at all.
 
-    ``settings`` is ``run.resolve(loaded)`` when the caller has it already (a batch resolves it once).
+    ``settings`` is ``preflight(loaded, run)`` when the caller has it already (a batch checks once);
+    otherwise the run is checked here, before anything is read or written.
     """
     from casefile.imaging import load
 
     run = (run or RunSettings()).with_limits()
-    settings = settings if settings is not None else run.resolve(loaded)
+    settings = settings if settings is not None else preflight(loaded, run)
+    by_digest = run.names_by_digest(loaded)
     try:
         scan = load(path, frame=run.frame, key=key, window=loaded.card["windowing"], uid_policy=run.uid_policy,
                     max_pixels=run.max_pixels, max_file_pixels=run.max_file_pixels)
     except CasefileError as exc:
         return record_failure(ledger, path, str(exc), stage="load", loaded=loaded,
-                              settings_hash=settings_digest(settings))
-    return _record_scan(ledger, str(path), scan, loaded, settings, target=target, sheet_dir=sheet_dir)
+                              settings_hash=settings_digest(settings), by_digest=by_digest)
+    return _record_scan(ledger, str(path), scan, loaded, settings, target=target, sheet_dir=sheet_dir,
+                        by_digest=by_digest)
 
 
 def _skipped(ledger: Ledger, name: str, case_id: str, sheet_dir: str | os.PathLike[str] | None) -> Outcome:
@@ -206,30 +221,36 @@ def _skipped(ledger: Ledger, name: str, case_id: str, sheet_dir: str | os.PathLi
     return out
 
 
-def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: dict[str, Any], *,
-                 target: int | None, sheet_dir: str | os.PathLike[str] | None) -> Outcome:
+def _record_scan(ledger: Ledger, name: str, scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *,
+                 target: int | None, sheet_dir: str | os.PathLike[str] | None, by_digest: bool = False) -> Outcome:
     """A loaded scan: skip it when this run is recorded already, else explain, append and draw its sheet."""
     s_hash = settings_digest(settings)
     existing = ledger.find_case_id(scan.file_sha256, scan.frame, loaded.digest, s_hash)
     if existing:
         return _skipped(ledger, name, existing, sheet_dir)
     base = Path(name).name
+    if by_digest:
+        base = digest_name(scan.file_sha256)
+        scan = replace(scan, file_name=base)
+
+    def failed(reason: str, stage: str) -> Outcome:
+        return record_failure(ledger, name, reason, stage=stage, loaded=loaded, settings_hash=s_hash,
+                              by_digest=by_digest)
+
     try:
         rec = explain_scan(scan, loaded, settings, target=target,
                            source="caller" if target is not None else "casefile")
     except CasefileError as exc:
-        return record_failure(ledger, name, str(exc), stage="explain", loaded=loaded, settings_hash=s_hash)
+        return failed(str(exc), "explain")
     except (RuntimeError, ValueError) as exc:  # torch refuses something about this model or input
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        reason = f"{base}: the explanation could not be computed: {first}"
-        return record_failure(ledger, name, reason, stage="explain", loaded=loaded, settings_hash=s_hash)
+        return failed(f"{base}: the explanation could not be computed: {first}", "explain")
     try:
         entry = ledger.append("case", rec.body, blobs=rec.blobs)
     except ValidationError as exc:
         if isinstance(exc, DuplicateCaseError):  # another process recorded it a moment ago
             return _skipped(ledger, name, rec.case_id, sheet_dir)
-        reason = f"{base}: the case record was refused: {exc}"
-        return record_failure(ledger, name, reason, stage="record", loaded=loaded, settings_hash=s_hash)
+        return failed(f"{base}: the case record was refused: {exc}", "record")
     out = Outcome(name, "recorded", rec.case_id, entry.seq, entry.hash, body=entry.body)
     if sheet_dir is not None:
         out.sheet = str(write_sheet(ledger, rec.case_id, sheet_dir))
@@ -237,43 +258,35 @@ def _record_scan(ledger: Ledger, name: str, scan: Any, loaded: Any, settings: di
 
 
 def write_sheet(ledger: Ledger, case_id: str, folder: str | os.PathLike[str] | None = None, *,
-                path: str | os.PathLike[str] | None = None, **opts: Any) -> Path:
+                path: str | os.PathLike[str] | None = None, page_size: str = "A4",
+                fixed_time: str | None = None) -> Path:
     """Render the case sheet to ``path``, or to ``folder``/<case_id>.pdf; written whole, then renamed into
     place, so a reader never sees half a PDF."""
     from casefile.sheet import sheet_for_case
 
     target = Path(path) if path is not None else Path(folder or ".") / f"{case_id}.pdf"
-    target.parent.mkdir(parents=True, exist_ok=True)
-    tmp = target.with_suffix(".pdf.part")
-    tmp.write_bytes(sheet_for_case(ledger, case_id, **opts))
-    os.replace(tmp, target)
-    return target
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{target.parent}: cannot create the sheet folder ({exc.strerror or exc})") from None
+    return write_atomic(target, sheet_for_case(ledger, case_id, page_size=page_size, fixed_time=fixed_time))
 
 
-def preflight(loaded: Any, run: RunSettings) -> dict[str, Any]:
-    """Refuse, before any input is touched, a run that cannot work for this model at all; return the
-    resolved settings (unknown explanation settings fail here, once, not per input)."""
-    from casefile.explain.gradcam import hookable_layer
-
-    settings = run.resolve(loaded)
-    if "gradcam" in run.methods:
-        try:
-            hookable_layer(loaded.module, settings["layer"])
-        except ExplainError as exc:
-            raise ExplainError(f"{loaded.source.get('file_name', 'model')}: {exc} "
-                               "(or choose --methods occlusion,gradient)") from None
-    return settings
-
-
-def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: Any,
+def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], loaded: LoadedModel,
                   run: RunSettings | None = None, *, key: str | None = None,
                   sheet_dir: str | os.PathLike[str] | None = None, progress: bool = True,
                   on_outcome: Callable[[Outcome], None] | None = None) -> BatchSummary:
-    """Every input in order; bad inputs are recorded as failed attempts and the batch goes on."""
+    """Every input in order; bad inputs are recorded as failed attempts and the batch goes on.
+
+    Everything that can be refused for the whole run (settings, missing paths) is refused first,
+    before any entry is written. ``on_outcome`` is called after each input; text it prints with
+    ``say`` goes above the progress bar.
+    """
     from tqdm import tqdm
 
     run = (run or RunSettings()).with_limits()
     settings = preflight(loaded, run)
+    check_inputs(inputs)
     files = list(iter_inputs(inputs))
     summary = BatchSummary()
     bar = tqdm(files, desc="explain", unit="case", file=sys.stderr, disable=not progress, dynamic_ncols=True)
@@ -296,8 +309,16 @@ def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], load
     return summary
 
 
-def record_case(ledger: Ledger | str, model: Any, input: Any, *, prediction: int | str | None = None,
-                run: RunSettings | None = None, key: str | None = None) -> Outcome:
+def say(line: str) -> None:
+    """Print one line on stderr above any progress bar (the bar is redrawn under it, never torn)."""
+    from tqdm import tqdm
+
+    tqdm.write(line, file=sys.stderr)
+
+
+def record_case(ledger: Ledger | str, model: LoadedModel, input: str | os.PathLike[str] | Scan, *,
+                prediction: int | str | None = None, run: RunSettings | None = None,
+                key: str | None = None) -> Outcome:
     """Wrap an inference you already run: record ``input`` (a path or a Scan) with ``model``.
 
     ``model`` is a LoadedModel (``casefile.models.load_model``). ``prediction`` is the label (or
@@ -317,5 +338,7 @@ def record_case(ledger: Ledger | str, model: Any, input: Any, *, prediction: int
                 raise InputError(f"prediction index {target} is outside 0..{len(model.labels) - 1}")
     if isinstance(input, str | os.PathLike):
         return explain_one(led, input, model, run, key=key, target=target)
-    settings = (run or RunSettings()).resolve(model)
-    return _record_scan(led, input.file_name, input, model, settings, target=target, sheet_dir=None)
+    run = run or RunSettings()
+    settings = preflight(model, run)
+    return _record_scan(led, input.file_name, input, model, settings, target=target, sheet_dir=None,
+                        by_digest=run.names_by_digest(model))

@@ -3,16 +3,18 @@
 from __future__ import annotations
 
 import hashlib
-import platform
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
-
-from casefile import __version__
-from casefile.canonical import canonical_bytes
-from casefile.cautions import CAUTION_TEXT
+from casefile.canonical import canonical_bytes, json_ready
+from casefile.cautions import CAUTION_TEXT, WEIGHTS_NOT_PINNED
 from casefile.ledger.derive import run_key
+from casefile.software import software_versions
+
+if TYPE_CHECKING:  # types only: the record is plain data and imports no model code at run time
+    from casefile.explain import Explanation
+    from casefile.imaging import Scan
+    from casefile.models import LoadedModel
 
 
 @dataclass(frozen=True)
@@ -41,36 +43,16 @@ def case_id_for(file_sha256: str, frame: int | None, model_digest: str, settings
     return "cf-" + run_key(file_sha256, frame, model_digest, settings_hash)[:16]
 
 
-def software_versions(extra: dict[str, str] | None = None) -> dict[str, str]:
-    import torch
-
-    versions = {"casefile": __version__, "python": platform.python_version(),
-                "torch": torch.__version__, "numpy": np.__version__}
-    versions.update(extra or {})
-    return versions
-
-
-def _plain(value: Any) -> Any:
-    """JSON-ready copy of allow-listed metadata; a value that cannot be stored exactly is left out."""
-    if isinstance(value, dict):
-        out = {str(k): _plain(v) for k, v in value.items()}
-        return {k: v for k, v in out.items() if v is not None}
-    if isinstance(value, list | tuple):
-        items = [_plain(v) for v in value]
-        return None if any(v is None for v in items) else items
-    if isinstance(value, bool) or isinstance(value, str):
-        return value
-    if isinstance(value, int):
-        return value if abs(value) < 2**53 else None
-    if isinstance(value, float):
-        return value if np.isfinite(value) else None
-    return None
-
-
 def _roi(card: dict[str, Any]) -> dict[str, Any]:
     """The card's region-of-interest rule (model-input pixels), kept so a sheet can draw it."""
-    roi = _plain(card.get("roi"))
+    roi = json_ready(card.get("roi"), on_bad="drop")
     return {"roi": roi} if isinstance(roi, dict) and roi.get("rule") else {}
+
+
+def _identity(loaded: LoadedModel) -> dict[str, Any]:
+    """Whether the card pinned these weights, and the model's notes (the pin note first when it did not)."""
+    notes = ([] if loaded.weights_pinned else [WEIGHTS_NOT_PINNED]) + list(loaded.notes)
+    return {"weights_pinned": bool(loaded.weights_pinned), **({"notes": notes} if notes else {})}
 
 
 def _top(scores: dict[str, Any], n: int = 3) -> list[dict[str, Any]]:
@@ -78,7 +60,7 @@ def _top(scores: dict[str, Any], n: int = 3) -> list[dict[str, Any]]:
     return [{"label": k, "p": v} for k, v in ranked[:n]]
 
 
-def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any], recorded_at: str,
+def build(scan: Scan, loaded: LoadedModel, explanation: Explanation, *, settings: dict[str, Any], recorded_at: str,
           display_png: bytes, overlays: dict[str, bytes], source: str = "casefile") -> CaseRecord:
     """The case body for ``scan`` explained by ``explanation`` under ``settings`` (all plain data)."""
     exp = explanation.to_record()
@@ -86,7 +68,7 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
     blobs: list[bytes] = [display_png]
     inp = scan.to_record()
     inp["display_blob"] = digest(display_png)
-    meta = _plain(dict(getattr(scan, "metadata", {}) or {}))
+    meta = json_ready(dict(getattr(scan, "metadata", {}) or {}), on_bad="drop")
     if meta:
         inp["metadata"] = meta  # the imaging room's allow-list of technical attributes only
     maps = []
@@ -101,11 +83,11 @@ def build(scan: Any, loaded: Any, explanation: Any, *, settings: dict[str, Any],
     body = {
         "case_id": case_id_for(scan.file_sha256, scan.frame, loaded.digest, s_digest),
         "recorded_at": recorded_at,
-        "software": software_versions({k: str(v) for k, v in exp.get("versions", {}).items()}),
+        "software": software_versions(exp.get("versions")),
         "input": inp,
         "model": {"name": loaded.card["name"], "version": loaded.card["version"], "digest": loaded.digest,
                   "card_digest": loaded.card_digest, "labels": list(loaded.labels),
-                  "layer": settings.get("layer"), **_roi(loaded.card)},
+                  "layer": settings.get("layer"), **_roi(loaded.card), **_identity(loaded)},
         "preprocessing": loaded.preprocessing_record(scan),
         "settings": settings,
         "settings_digest": s_digest,

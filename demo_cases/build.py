@@ -8,8 +8,9 @@ from typing import Any
 
 import numpy as np
 
+from casefile.models import pin_card
 from demo_cases.scenario import LABELS, make_case
-from demo_cases.train import train
+from demo_cases.train import ENTRY_POINT, train
 from demo_cases.writers import write_dicom, write_png
 
 
@@ -37,17 +38,37 @@ def write_inputs(out_dir: str | Path, seed: int = 7, n_cases: int = 40) -> dict[
     return truth
 
 
+def pin_cards(paths: dict[str, Path]) -> dict[str, Path]:
+    """Pin each model's card to its weights, as a site would before use (casefile.models.pin_card).
+
+    A card describes one weights file, so the TorchScript copy gets a card of its own,
+    ``<name>.ts.card.json`` (``paths["torchscript_card"]``), pinned to the .ts file; it needs no
+    entry point and no state dict.
+    """
+    pin_card(paths["card"], paths["weights"], trusted_entry_points=[ENTRY_POINT])
+    if "torchscript" in paths:
+        card = json.loads(paths["card"].read_text(encoding="utf-8"))
+        for key in ("weights", "entry_point", "weights_sha256"):
+            card.pop(key, None)
+        ts_card = paths["card"].with_name(paths["card"].name.replace(".card.json", ".ts.card.json"))
+        ts_card.write_text(json.dumps(card, indent=2) + "\n", encoding="utf-8")
+        pin_card(ts_card, paths["torchscript"])
+        paths = {**paths, "torchscript_card": ts_card}
+    return paths
+
+
 def build_scenario(out_dir: str | Path, seed: int = 7, n_cases: int = 40) -> dict[str, Any]:
     """Write inputs/, models/ (honest and shortcut: state dict, TorchScript, card) and truth.json.
 
     Returns {"dir", "inputs" (list of paths), "truth" (path of truth.json), "cases" (the truth mapping),
-    "honest" and "shortcut" (dicts of paths from demo_cases.train.train)}. Nothing is written elsewhere.
+    "honest" and "shortcut" (dicts of paths from demo_cases.train.train, with the cards pinned to their
+    weights and a "torchscript_card": see pin_cards)}. Nothing is written elsewhere.
     """
     out = Path(out_dir)
     inputs_dir, models_dir = out / "inputs", out / "models"
     cases = write_inputs(inputs_dir, seed=seed, n_cases=n_cases)
-    honest = train(seed, shortcut=False, out_dir=models_dir)
-    shortcut = train(seed, shortcut=True, out_dir=models_dir)
+    honest = pin_cards(train(seed, shortcut=False, out_dir=models_dir))
+    shortcut = pin_cards(train(seed, shortcut=True, out_dir=models_dir))
     manifest = {
         "scenario": "synthetic radiographs of cast aluminium parts (generated; no real parts or people)",
         "seed": seed,

@@ -7,6 +7,7 @@ argparse does), ISO 8601 for the date and time forms accepted by --since/--until
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -102,7 +103,7 @@ def test_debug_shows_the_traceback(tmp_path):
     assert "Traceback" not in plain.stderr
     loud = run("--debug", "audit", store=notes)
     assert loud.returncode == 1 and "Traceback (most recent call last)" in loud.stderr
-    env = {**__import__("os").environ, "CASEFILE_DEBUG": "1"}
+    env = {**os.environ, "CASEFILE_DEBUG": "1"}
     assert "Traceback (most recent call last)" in run("audit", store=notes, env=env).stderr
 
 
@@ -122,3 +123,58 @@ def test_every_command_has_help_that_names_itself():
     for name, sp in sub.choices.items():
         assert sp.description, name
         assert f"casefile {name}" in sp.format_usage()
+
+
+def _case_store(tmp_path, ids):
+    from tests.ledger.bodies import case_body
+
+    path = tmp_path / "cases.db"
+    led = Ledger(str(path))
+    for i, cid in enumerate(ids):
+        body = case_body(i)
+        body["case_id"] = cid
+        led.append("case", body)
+    led.close()
+    return path
+
+
+def test_commands_take_a_unique_case_id_prefix_and_say_when_it_is_ambiguous(tmp_path):
+    store = _case_store(tmp_path, ["cf-1a2b3c4d5e6f7a8b", "cf-1a2b3c4d9999aaaa", "cf-77777777aaaaaaaa"])
+    shown = run("history", "cf-77777777", "--json", store=store)
+    assert shown.returncode == 0 and '"seq": 3' in shown.stdout, shown.stderr  # the third case, by its prefix
+    before = head(store)
+    for args in (["history", "cf-1a2b3c4d"], ["review", "cf-1a2b3c4d", "--reader", "r1", "--verdict", "agree"],
+                 ["amend", "cf-1a2b3c4d", "--author", "qa", "--reason", "typo"]):
+        done = run(*args, store=store)
+        assert done.returncode == 1 and done.stderr.count("\n") == 1, done.stderr
+        assert "ambiguous" in done.stderr and "cf-1a2b3c4d5e6f7a8b" in done.stderr
+    short = run("sheet", "cf-7777", store=store)
+    assert short.returncode == 1 and "at least 8 characters" in short.stderr
+    assert head(store) == before  # nothing was written by any of them
+
+
+def test_store_help_names_exactly_the_forms_the_ledger_opens(tmp_path):
+    from casefile.cli.common import STORE_HELP
+
+    assert "sqlite:///relative/path.db" in STORE_HELP and "sqlite:////absolute/path.db" in STORE_HELP
+    assert "SQLAlchemy" not in STORE_HELP  # other engines' URLs are refused, so the help does not offer them
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+
+    def init(form: str) -> subprocess.CompletedProcess:
+        return subprocess.run([sys.executable, "-m", "casefile.cli", "--store", form, "init"], capture_output=True,
+                              text=True, cwd=tmp_path, env=env)
+
+    for form in ("a.db", "sqlite:///b.db", f"sqlite:///{tmp_path}/c.db"):
+        assert init(form).returncode == 0, init(form).stderr
+    assert {p.name for p in tmp_path.glob("*.db")} == {"a.db", "b.db", "c.db"}
+    refused = init("postgresql://db.example/ledger")
+    assert refused.returncode == 1 and "sqlite:///relative/path.db" in refused.stderr
+
+
+def test_card_pin_refusal_changes_neither_the_card_nor_the_ledger(tmp_path, store):
+    card = tmp_path / "card.json"
+    card.write_text('{"name": "x"}\n')
+    before = head(store)
+    done = run("card", "pin", str(card), str(tmp_path / "missing.pt"), store=store)
+    assert done.returncode == 1 and done.stderr.count("\n") == 1 and "card.json" in done.stderr
+    assert card.read_text() == '{"name": "x"}\n' and head(store) == before

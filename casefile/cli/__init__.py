@@ -14,11 +14,11 @@ import traceback
 from collections.abc import Sequence
 
 from casefile import __version__
-from casefile.cli import audit_cmds, case_cmds, ledger_cmds, review_cmds
-from casefile.cli.common import STORE_HELP, err
-from casefile.errors import CasefileError
+from casefile.cli import audit_cmds, card_cmds, case_cmds, ledger_cmds, review_cmds
+from casefile.cli.common import STORE_HELP, err, resolve_case_ids
+from casefile.errors import CasefileError, UsageError
 
-GROUPS = (ledger_cmds, case_cmds, audit_cmds, review_cmds)
+GROUPS = (ledger_cmds, case_cmds, card_cmds, audit_cmds, review_cmds)
 DEBUG_ENV = "CASEFILE_DEBUG"
 
 
@@ -67,7 +67,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     name = f"casefile {args.command}"
     debug = _debugging(args)
     try:
+        resolve_case_ids(args)  # CASE_ID may be a unique prefix (8+ characters after "cf-")
         return int(args.func(args))
+    except UsageError as exc:  # an option that cannot work with this model or ledger: exit 2, nothing written
+        if debug:
+            traceback.print_exc()
+        args.subparser.error(_first_line(exc))
     except BrokenPipeError:
         _quiet_stdout()
         err(f"{name}: the output was closed before everything was written")
@@ -79,6 +84,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         if debug:
             traceback.print_exc()
         err(f"{name}: {_first_line(exc)}")
+        return 1
+    except OSError as exc:  # a file or folder the command was pointed at cannot be used
+        if debug:
+            traceback.print_exc()
+        where = f"{exc.filename}: " if exc.filename else ""
+        err(f"{name}: {where}{exc.strerror or _first_line(exc)}")
         return 1
     except Exception as exc:  # anything else is still one line; --debug shows where it came from
         if debug:

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import sys
 from typing import TYPE_CHECKING
 
-from casefile.cli.common import command, err, jsonl, open_ledger, positive_int
+from casefile.cli.common import CASE_ID_HELP, command, err, jsonl, non_negative_int, open_ledger, positive_int
 
 if TYPE_CHECKING:
     from casefile.pipeline import Outcome, RunSettings
@@ -37,25 +38,29 @@ def _run_settings(args: argparse.Namespace) -> RunSettings:
 
     return RunSettings(methods=args.methods, layer=args.layer, patch=args.patch, stride=args.stride,
                        fill=args.fill, frame=args.frame, uid_policy=args.uid_policy, max_pixels=args.max_pixels,
-                       max_file_pixels=args.max_file_pixels)
+                       max_file_pixels=args.max_file_pixels, name_policy=args.name_policy)
 
 
 def cmd_explain(args: argparse.Namespace) -> int:
     from casefile.models import load_model
-    from casefile.pipeline import explain_batch
+    from casefile.pipeline import check_inputs, explain_batch, preflight, say
 
+    run = _run_settings(args)
+    check_inputs(args.inputs)
     loaded = load_model(args.model, args.card)
+    preflight(loaded, run)  # every refusal for the whole run, before the ledger is even opened
     led = open_ledger(args, create=True)
 
     def show(out: Outcome) -> None:
         if args.json:
             jsonl(out.json_line())
-        elif out.outcome == "failed":
-            err(f"failed: {out.input}: {out.reason}")
+        if out.outcome == "failed":
+            say(out.line())  # on stderr above the progress bar, once, naming the path once
 
-    summary = explain_batch(led, args.inputs, loaded, _run_settings(args), key=args.site_key,
-                            sheet_dir=args.sheets, progress=not args.quiet, on_outcome=show)
-    err(summary.text())
+    summary = explain_batch(led, args.inputs, loaded, run, key=args.site_key,
+                            sheet_dir=args.sheets, progress=not args.quiet and sys.stderr.isatty(),
+                            on_outcome=show)
+    err(summary.text(list_failures=False))
     if summary.interrupted:
         return 130
     return 1 if summary.failed else 0
@@ -131,7 +136,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--stride", type=positive_int, metavar="N", help="occlusion stride (default: half the patch)")
     sp.add_argument("--fill", metavar="V", type=_fill, help="occlusion fill: a number (default 0, the "
                     "normalised mean), 'mean' or 'blur'")
-    sp.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame DICOM file (0-based)")
+    sp.add_argument("--frame", type=non_negative_int, metavar="N",
+                    help="frame of a multi-frame DICOM file (0-based)")
     sp.add_argument("--uid-policy", choices=["keep-uids", "drop-uids"], default="keep-uids",
                     help="keep the Study/Series/SOP Instance UIDs (default) or drop them")
     sp.add_argument("--site-key", metavar="FILE", help="site key for pseudonyms (default $CASEFILE_SITE_KEY "
@@ -141,20 +147,26 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--max-file-pixels", type=positive_int, metavar="N", help="refuse inputs whose header "
                     "declares more than N values (pixels x samples x frames) per file (default: site settings, "
                     "else 400000000)")
+    sp.add_argument("--name-policy", choices=["base-name", "digest"], default=None,
+                    help="how the record names each input: base-name (the file's name without its folder) or "
+                         "digest ('sha256:' and 16 hex digits of the file's SHA-256, for files named after "
+                         "patients). Default: the card's record_file_name (false means digest), else base-name; "
+                         "digest wins when either asks for it")
     sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
-    sp.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+    sp.add_argument("-q", "--quiet", action="store_true",
+                    help="no progress bar (there is none when stderr is not a terminal)")
     sp.add_argument("inputs", nargs="+", metavar="INPUT", help="image files or folders (searched recursively)")
 
     sp = command(sub, "sheet", cmd_sheet, "render the PDF case sheet of one or more cases", json_=False,
                  check=_sheet_usage)
-    sp.add_argument("case_ids", nargs="+", metavar="CASE_ID")
+    sp.add_argument("case_ids", nargs="+", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("-o", "--output", metavar="FILE", help="output file for one case (default CASE_ID.pdf)")
     sp.add_argument("--dir", metavar="DIR", help="write each sheet as DIR/CASE_ID.pdf")
     sp.add_argument("--page-size", choices=["A4", "letter"], default="A4")
 
     sp = command(sub, "export", cmd_export, "wrap a case sheet as a DICOM Encapsulated PDF, to a file or an "
                  "archive", json_=False, check=_export_usage)
-    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     where = sp.add_mutually_exclusive_group(required=True)
     where.add_argument("--dicom", metavar="FILE.dcm", help="write the DICOM object here")
     where.add_argument("--pacs", metavar="HOST:PORT", help="send it to this archive with C-STORE")

@@ -15,8 +15,11 @@ if TYPE_CHECKING:
     from casefile.ledger import Ledger
 
 DEFAULT_STORE = "casefile.db"
-STORE_HELP = ("the ledger: a SQLite file path (default $CASEFILE_STORE, else ./casefile.db) or an "
-              "SQLAlchemy URL such as sqlite:////abs/path/ledger.db")
+STORE_HELP = ("the ledger: a SQLite file path (default $CASEFILE_STORE, else ./casefile.db), or a URL "
+              "sqlite:///relative/path.db or sqlite:////absolute/path.db; SQLite is the only database this "
+              "release opens")
+
+CASE_ID_HELP = "a case id, or a unique prefix of one (at least 8 characters after 'cf-')"
 
 Handler = Callable[[argparse.Namespace], int]
 Check = Callable[[argparse.Namespace], "str | None"]
@@ -32,6 +35,23 @@ def open_ledger(args: argparse.Namespace, create: bool = False) -> Ledger:
     return Ledger(store(args), create=create)
 
 
+def resolve_case_ids(args: argparse.Namespace) -> None:
+    """Let every command that takes CASE_ID accept a unique prefix: replace ``args.case_id`` /
+    ``args.case_ids`` by the full ids before the command runs (Ledger.resolve_case_id; refused in one
+    line when the prefix is short, unknown or ambiguous)."""
+    single, many = getattr(args, "case_id", None), getattr(args, "case_ids", None)
+    if single is None and not many:
+        return
+    led = open_ledger(args)
+    try:
+        if single is not None:
+            args.case_id = led.resolve_case_id(single)
+        if many:
+            args.case_ids = [led.resolve_case_id(c) for c in many]
+    finally:
+        led.close()
+
+
 def jsonl(obj: Any) -> None:
     """One JSON object on one line of stdout."""
     sys.stdout.write(json.dumps(obj, ensure_ascii=False, sort_keys=True) + "\n")
@@ -41,9 +61,10 @@ def err(msg: str) -> None:
     sys.stderr.write(msg + "\n")
 
 
-def command(sub: argparse._SubParsersAction, name: str, fn: Handler, help_: str, *, json_: bool = True,
+def command(sub: argparse._SubParsersAction, name: str, fn: Handler | None, help_: str, *, json_: bool = True,
             check: Check | None = None, epilog: str | None = None) -> argparse.ArgumentParser:
-    """Add one command. ``check(args)`` runs after parsing and returns a usage problem (exit 2) or None."""
+    """Add one command. ``check(args)`` runs after parsing and returns a usage problem (exit 2) or None.
+    ``fn`` None: a group whose actions are added with ``subcommand``."""
     sp = sub.add_parser(name, help=help_, description=help_, epilog=epilog,
                         formatter_class=argparse.RawDescriptionHelpFormatter)
     sp.set_defaults(func=fn, check=check, subparser=sp)
@@ -51,6 +72,14 @@ def command(sub: argparse._SubParsersAction, name: str, fn: Handler, help_: str,
                     help="show the full traceback of an error")
     if json_:
         sp.add_argument("--json", action="store_true", help="one JSON object per line on stdout")
+    return sp
+
+
+def subcommand(inner: argparse._SubParsersAction, name: str, fn: Handler, help_: str, *, prog_name: str,
+               json_: bool = True, check: Check | None = None) -> argparse.ArgumentParser:
+    """One action of a command group (``casefile card pin``): a command of its own under the group."""
+    sp = command(inner, name, fn, help_, json_=json_, check=check)
+    sp.set_defaults(command=prog_name)
     return sp
 
 

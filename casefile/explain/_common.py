@@ -97,8 +97,10 @@ def call_model(module: nn.Module, x: torch.Tensor) -> object:
 def batched_logits(module: nn.Module, xs: torch.Tensor, batch_size: int) -> tuple[torch.Tensor, int]:
     """Logits [N, K] for the images ``xs`` [N, C, H, W], ``batch_size`` at a time, without a graph.
 
-    A model exported for a fixed batch of one refuses bigger batches; then the images go one at a
-    time. Returns the logits and the batch size that worked.
+    A model whose batch is fixed at one (exported for a static batch of one, or whose output batch
+    does not follow the input batch) refuses bigger batches or answers them with the wrong number of
+    rows; then the images go one at a time. Returns the logits and the batch size that worked (1 after
+    such a fallback), so the caller can record it.
     """
     outs: list[torch.Tensor] = []
     with torch.no_grad():
@@ -108,11 +110,14 @@ def batched_logits(module: nn.Module, xs: torch.Tensor, batch_size: int) -> tupl
             try:
                 out = call_model(module, chunk)
             except ExplainError:
-                if batch_size == 1:
+                if len(chunk) == 1:
                     raise
                 batch_size = 1
                 continue
             if not isinstance(out, torch.Tensor) or out.dim() != 2 or out.shape[0] != len(chunk):
+                if len(chunk) > 1 and isinstance(out, torch.Tensor):
+                    batch_size = 1  # the output batch does not follow the input batch: one at a time
+                    continue
                 shape = list(out.shape) if isinstance(out, torch.Tensor) else type(out).__name__
                 raise ExplainError(
                     f"model output: expected logits [{len(chunk)}, K] for a batch of {len(chunk)}, got {shape}"

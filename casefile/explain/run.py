@@ -29,19 +29,18 @@ Default settings (:data:`DEFAULT_SETTINGS`) and why:
 
 from __future__ import annotations
 
-import math
-import platform
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-import scipy
 import torch
 from torch import nn
 
+from casefile.canonical import json_ready
 from casefile.errors import ExplainError
 from casefile.flags import DEFAULT_FLAG_POLICY, Outcome, flagging_checks, merged_policy, policy_problem
+from casefile.software import software_versions
 
 from . import checks as ck
 from ._common import check_input, forward_logits, model_left_as_found, pick_target
@@ -66,21 +65,6 @@ DEFAULT_SETTINGS: dict[str, Any] = {
 }
 
 _RANK = {"fail": 3, "warn": 2, "pass": 1}
-
-
-def _clean(value: Any) -> Any:
-    """JSON-ready copy: numpy scalars to Python, non-finite floats to None, tuples to lists."""
-    if isinstance(value, Mapping):
-        return {str(k): _clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if math.isfinite(float(value)) else None
-    return value
 
 
 def worst(outcomes: Sequence[str]) -> Outcome:
@@ -139,7 +123,7 @@ class Explanation:
                     "max": float(np.max(m)) if finite else None,
                 }
             )
-        return _clean(
+        return json_ready(
             {
                 "label": self.label,
                 "label_index": self.label_index,
@@ -280,12 +264,7 @@ def run(
         map_params=params,
         checks=found,
         settings=s,
-        versions={
-            "torch": torch.__version__,
-            "numpy": np.__version__,
-            "scipy": scipy.__version__,
-            "python": platform.python_version(),
-        },
+        versions=software_versions(),
         status=worst([c.outcome for c in found]),
         target_source="predicted" if target is None else "given",
         flags=flagged_by,

@@ -1,6 +1,6 @@
 """The append-only, hash-chained ledger: entries, blobs, derived query tables, seals and verify.
 
-Imports run one way: tables, derive, merkle, keys → store → sealfile, trust → seal, report →
+Imports run one way: tables, derive, merkle, keys, location → store → sealfile, trust → seal, report →
 seal_checks → verify → facade (the ``Ledger`` class) → this package.
 """
 

@@ -16,7 +16,6 @@ missing or null fields, unknown fields, too large) is refused with one line nami
 from __future__ import annotations
 
 import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
@@ -25,7 +24,8 @@ from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
-from casefile.errors import LedgerError, ValidationError
+from casefile.errors import LedgerError, OutputError, ValidationError
+from casefile.files import write_atomic
 from casefile.ledger.inputs import read_small_file
 from casefile.ledger.keys import KeySource, load_private_key, public_hex, sign, signature_valid
 from casefile.ledger.store import Entry, entry_hash
@@ -158,17 +158,7 @@ def check_output(path: str | os.PathLike[str]) -> Path:
 def write_seal_file(path: str | os.PathLike[str], data: bytes) -> Path:
     """Write a seal file whole, then rename it into place (a reader never sees half a file)."""
     p = check_output(path)
-    tmp = None
     try:
-        fd, tmp = tempfile.mkstemp(dir=p.parent, prefix=f".{p.name}.", suffix=".tmp")
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.chmod(tmp, 0o644)  # a seal file is public: auditors keep copies of it
-        os.replace(tmp, p)
-    except OSError as exc:
-        if tmp and os.path.exists(tmp):
-            os.unlink(tmp)
-        raise LedgerError(f"{p}: cannot write the seal file ({exc.strerror or exc})") from None
-    return p
+        return write_atomic(p, data, mode=0o644)  # a seal file is public: auditors keep copies of it
+    except OutputError as exc:
+        raise LedgerError(f"seal file {exc}") from None

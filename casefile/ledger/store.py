@@ -1,7 +1,7 @@
 """The store: open a ledger database, append entries with their blobs in one transaction, read them back.
 
-This is the bottom of the ledger package: it imports no other ledger module but the tables and the
-derived-row rules. Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
+This is the bottom of the ledger package: it imports no other ledger module but the tables, the
+derived-row rules and the location check. Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
 into the ``Ledger`` users open.
 """
 
@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import re
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
@@ -25,6 +24,7 @@ from casefile.canonical import canonical_bytes, parse
 from casefile.errors import DuplicateCaseError, LedgerError, ValidationError
 from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
+from casefile.ledger.location import check_ledger_file, locate
 
 READ_CHUNK = 2000
 # One plain INSERT per table at the driver level (qmark style, SQLite): appends are the hot path and
@@ -80,10 +80,7 @@ class CaseHistory:
         return sorted([self.entry, *self.amendments, *self.reviews], key=lambda e: e.seq)
 
 
-def _url(store: str) -> str:
-    if "://" in store:
-        return store
-    return "sqlite:///" + os.path.abspath(store)
+CASE_PREFIX_MIN = 8  # characters after "cf-" (or of an id without it) that name a case uniquely enough
 
 
 class Store:
@@ -102,15 +99,8 @@ class Store:
         if synchronous.upper() not in ("FULL", "NORMAL"):
             raise LedgerError(f"synchronous must be FULL or NORMAL, not {synchronous!r}")
         self.synchronous = synchronous.upper()
-        self.url = _url(url)
-        if not self.url.startswith("sqlite"):
-            raise LedgerError(f"{url}: only SQLite ledgers are supported in this release")
-        path = self.url[len("sqlite:///"):]
-        if not create and not os.path.exists(path):
-            raise LedgerError(f"{path}: no ledger here (run `casefile init` first)")
-        parent = os.path.dirname(path)
-        if parent and not os.path.isdir(parent):
-            raise LedgerError(f"{path}: folder {parent} does not exist")
+        self.url, path = locate(url)
+        check_ledger_file(path, create=create)
         self.path = path
         self.engine = self._make_engine()
         try:
@@ -341,6 +331,31 @@ class Store:
         with self.engine.connect() as conn:
             r = conn.execute(select(t.cases.c.case_id).where(t.cases.c.run_key == key)).first()
         return r[0] if r else None
+
+    def resolve_case_id(self, text: str) -> str:
+        """The full case id that ``text`` names: the id itself, or a unique prefix of at least
+        CASE_PREFIX_MIN characters after ``cf-`` (e.g. ``cf-1a2b3c4d``). A prefix that is too short,
+        matches no case or matches several is refused in one line (the last naming a few matches)."""
+        text = text.strip()
+        c = t.cases.c
+        with self.engine.connect() as conn:
+            if conn.execute(select(c.case_id).where(c.case_id == text)).first() is not None:
+                return text
+            body = text[3:] if text.startswith("cf-") else text
+            if len(body) < CASE_PREFIX_MIN:
+                raise LedgerError(f"{self.path}: no case {text!r}; a shortened case id needs at least "
+                                  f"{CASE_PREFIX_MIN} characters after 'cf-'")
+            # a range on the indexed column (a LIKE pattern would read '_' in an id as a wildcard)
+            found = [r[0] for r in conn.execute(
+                select(c.case_id).where(c.case_id >= text, c.case_id < text + "\U0010ffff")
+                .order_by(c.case_id).limit(6))]
+        if not found:
+            raise LedgerError(f"{self.path}: no case {text!r} (no case id starts so)")
+        if len(found) > 1:
+            more = ", …" if len(found) > 5 else ""
+            raise LedgerError(f"{self.path}: {text!r} is ambiguous: it starts {'more than 5' if more else len(found)} "
+                              f"case ids ({', '.join(found[:5])}{more}); give more characters")
+        return found[0]
 
     def case(self, case_id: str) -> CaseHistory:
         """The case entry with its amendments and reviews, in seq order."""

@@ -10,10 +10,14 @@ An entry point is imported only when the site (or the calling program) trusts it
 called with the card's `entry_point_args` as keyword arguments (casefile.models.trust). A ".pt2"
 archive is checked before and after torch reads it so that no code from it runs (casefile.models.archive).
 A TorchScript file is a program: load it only from a source you trust.
+A card may pin its weights (``weights_sha256``); then a model file with another SHA-256 is refused before
+it is read (``pin_card`` writes the pin, casefile.models.pinning).
 """
 
 from casefile.models.card import card_digest, check_card, read_card
 from casefile.models.loading import LoadedModel, load_model, sha256_file
+from casefile.models.pinning import PinResult, pin_card
 from casefile.models.preprocess import BT601_LUMA
 
-__all__ = ["BT601_LUMA", "LoadedModel", "card_digest", "check_card", "load_model", "read_card", "sha256_file"]
+__all__ = ["BT601_LUMA", "LoadedModel", "PinResult", "card_digest", "check_card", "load_model", "pin_card",
+           "read_card", "sha256_file"]

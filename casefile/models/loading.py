@@ -30,6 +30,9 @@ from casefile.models.card import card_digest, read_card
 from casefile.models.preprocess import preprocess_pixels, roi_mask, rules_record
 from casefile.models.trust import ENTRY_POINT, build_module, trusted_names
 
+ONE_AT_A_TIME = ("the model takes one image at a time (its output batch does not follow the input batch): "
+                 "occlusion and the checks ran in batches of one")
+
 
 @dataclass(frozen=True)
 class LoadedModel:
@@ -43,6 +46,13 @@ class LoadedModel:
     layer: str
     source: dict[str, Any] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    weights_pinned: bool = False  # the card's weights_sha256 named exactly these weights
+    card_name: str = "card"  # the card file's base name, for messages
+
+    @property
+    def fixed_batch(self) -> bool:
+        """The model takes one image at a time (probed with a batch of two when it was loaded)."""
+        return ONE_AT_A_TIME in self.notes
 
     @property
     def name(self) -> str:
@@ -94,8 +104,6 @@ def _is_torchscript(path: Path) -> bool:
 def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], card_name: str,
                       trusted: tuple[str, ...]) -> nn.Module:
     module = build_module(entry_point, card.get("entry_point_args", {}), trusted, card_name)
-    if not weights.is_file():
-        raise ModelError(f"{weights.name}: state-dict file not found at {weights} (named by {card_name})")
     try:
         state = torch.load(weights, map_location="cpu", weights_only=True)
     except Exception as exc:
@@ -114,22 +122,49 @@ def _from_entry_point(entry_point: str, weights: Path, card: dict[str, Any], car
     return module
 
 
-def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path,
-                 trusted: str | Iterable[str] | None) -> tuple[nn.Module, str, dict]:
+def weights_file(model_path: str | Path, card: dict[str, Any], card_file: Path) -> tuple[Path, str]:
+    """The file whose bytes are the model's weights, and how it is read (the rule in the module docstring):
+    ("entry-point", the card's ``weights``), ("torch.export", a .pt2), or ("file", TorchScript or a state
+    dict, told apart when it is loaded). Its SHA-256 is the model digest every record carries."""
     text = str(model_path)
-    card_name = card_file.name
     path = Path(model_path)
     if ENTRY_POINT.match(text) and not path.exists():
         if "weights" not in card:
-            raise ModelError(f"{card_name}: entry point {text} needs a 'weights' state-dict file in the card")
+            raise ModelError(f"{card_file.name}: entry point {text} needs a 'weights' state-dict file in the card")
         weights = card_file.parent / card["weights"]
-        module = _from_entry_point(text, weights, card, card_name, trusted_names(trusted))
-        return module, sha256_file(weights), {"format": "entry-point", "entry_point": text,
-                                              "file_name": weights.name}
+        if not weights.is_file():
+            raise ModelError(f"{weights.name}: state-dict file not found at {weights} (named by {card_file.name})")
+        return weights, "entry-point"
     if not path.is_file():
         raise ModelError(f"{path.name}: model file not found at {path}")
+    return path, "torch.export" if path.suffix == ".pt2" else "file"
+
+
+def check_pin(card: dict[str, Any], card_name: str, file_name: str, digest: str) -> bool:
+    """True when the card pins the weights and ``digest`` is that pin; False when the card pins nothing.
+
+    A different digest is refused in one line naming both, before torch reads a byte of the file.
+    """
+    want = card.get("weights_sha256")
+    if want is None:
+        return False
+    if want.lower() != digest:
+        raise ModelError(f"{file_name}: SHA-256 {digest} does not match the card {card_name}'s weights_sha256 "
+                         f"{want.lower()}; this is not the model the card describes")
+    return True
+
+
+def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path, trusted: str | Iterable[str] | None,
+                 ) -> tuple[nn.Module, str, dict, bool]:
+    card_name = card_file.name
+    path, how = weights_file(model_path, card, card_file)
     digest = sha256_file(path)
-    if path.suffix == ".pt2":
+    pinned = check_pin(card, card_name, path.name, digest)
+    if how == "entry-point":
+        module = _from_entry_point(str(model_path), path, card, card_name, trusted_names(trusted))
+        return module, digest, {"format": "entry-point", "entry_point": str(model_path),
+                                "file_name": path.name}, pinned
+    if how == "torch.export":
         check_export_archive(path)
         try:
             program = torch.export.load(str(path))
@@ -142,7 +177,7 @@ def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path,
                 module = torch.export.unflatten(program)
         except Exception as exc:
             raise ModelError(f"{path.name}: torch.export archive cannot be unflattened ({type(exc).__name__})") from None
-        return module, digest, {"format": "torch.export", "file_name": path.name}
+        return module, digest, {"format": "torch.export", "file_name": path.name}, pinned
     if _is_torchscript(path):
         try:
             with warnings.catch_warnings():
@@ -150,13 +185,14 @@ def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path,
                 module = torch.jit.load(str(path), map_location="cpu")
         except Exception as exc:
             raise ModelError(f"{path.name}: not a readable TorchScript file ({type(exc).__name__})") from None
-        return module, digest, {"format": "torchscript", "file_name": path.name}
+        return module, digest, {"format": "torchscript", "file_name": path.name}, pinned
     if "entry_point" not in card:
         raise ModelError(
             f"{path.name}: not TorchScript or a .pt2 archive; a state dict needs 'entry_point' in {card_name}"
         )
     module = _from_entry_point(card["entry_point"], path, card, card_name, trusted_names(trusted))
-    return module, digest, {"format": "entry-point", "entry_point": card["entry_point"], "file_name": path.name}
+    return module, digest, {"format": "entry-point", "entry_point": card["entry_point"],
+                            "file_name": path.name}, pinned
 
 
 def check_against_card(module: nn.Module, card: dict[str, Any], card_name: str) -> tuple[str, ...]:
@@ -202,7 +238,20 @@ def check_against_card(module: nn.Module, card: dict[str, Any], card_name: str) 
         if not isinstance(feat, torch.Tensor) or feat.ndim != 4:
             shape = list(feat.shape) if isinstance(feat, torch.Tensor) else type(feat).__name__
             raise ModelError(f"{card_name}: layer {layer!r} gives {shape}, not a 4-D [N, C, H, W] feature map")
+    if not takes_batches(module, x):
+        notes.append(ONE_AT_A_TIME)
     return tuple(notes)
+
+
+def takes_batches(module: nn.Module, x: torch.Tensor) -> bool:
+    """True when a batch of two gives two rows of scores; False for a model fixed at a batch of one
+    (exported with a static batch, or whose output batch does not follow the input batch)."""
+    try:
+        with torch.no_grad():
+            out = module(torch.cat([x, x]))
+    except Exception:  # any refusal of a batch of two is what this probe asks about
+        return False
+    return isinstance(out, torch.Tensor) and out.ndim == 2 and out.shape[0] == 2
 
 
 def load_model(model_path: str | Path, card_path: str | Path, *,
@@ -213,10 +262,19 @@ def load_model(model_path: str | Path, card_path: str | Path, *,
     ``"package.module:factory"``) is imported only when trusted: by the site settings, or by
     ``trusted_entry_points`` from the calling program (names as in the site settings: a package, a
     module, or ``"module:factory"``; added to the site's). See casefile.models.trust.
+
+    When the card pins its weights (``weights_sha256``), a model file with another SHA-256 is refused
+    before torch reads it; ``LoadedModel.weights_pinned`` says whether the card pinned them.
     """
     card_file = Path(card_path)
-    card = read_card(card_file)
-    module, digest, source = _load_module(model_path, card, card_file, trusted_entry_points)
+    return load_with_card(model_path, read_card(card_file), card_file, trusted_entry_points)
+
+
+def load_with_card(model_path: str | Path, card: dict[str, Any], card_file: Path,
+                   trusted_entry_points: str | Iterable[str] | None = None) -> LoadedModel:
+    """``load_model`` for a card already read and checked (``card_file`` is where it came from: its
+    folder anchors the card's ``weights``, its name goes into messages)."""
+    module, digest, source, pinned = _load_module(model_path, card, card_file, trusted_entry_points)
     module.eval()
     notes = check_against_card(module, card, card_file.name)
     return LoadedModel(
@@ -228,4 +286,6 @@ def load_model(model_path: str | Path, card_path: str | Path, *,
         layer=card["layer"],
         source=source,
         notes=notes,
+        weights_pinned=pinned,
+        card_name=card_file.name,
     )

@@ -9,6 +9,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import InputError
+from ..files import write_atomic
 from .layout import render_sheet
 
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")
@@ -30,7 +31,7 @@ def render_many(
 ) -> list[Path]:
     """Render each item (a dict of ``render_sheet`` arguments: case, blob, reviews, as_of_seq,
     entry_hash) to ``folder/<case id>.pdf``. Items are consumed lazily, written atomically (a
-    temporary file renamed into place) and not kept; returns the paths written."""
+    casefile.files.write_atomic) and not kept; returns the paths written."""
     out = Path(folder)
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -43,13 +44,7 @@ def render_many(
         args.setdefault("page_size", page_size)
         args.setdefault("fixed_time", fixed_time)
         pdf = render_sheet(case, **args)
-        path = out / sheet_file_name(case.get("case_id", "case"))
-        tmp = path.with_suffix(".pdf.part")
-        try:
-            tmp.write_bytes(pdf)
-            os.replace(tmp, path)
-        except OSError as e:
-            raise InputError(f"{path}: cannot write the sheet ({e.strerror})") from e
+        path = write_atomic(out / sheet_file_name(case.get("case_id", "case")), pdf)
         del pdf
         written.append(path)
         if on_done is not None:

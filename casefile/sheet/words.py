@@ -9,6 +9,8 @@ from __future__ import annotations
 from collections.abc import Callable, Iterable, Mapping
 from typing import Any
 
+from ..cautions import WEIGHTS_NOT_PINNED, WEIGHTS_PINNED
+
 MISSING = "—"
 KIND_WORDS = {"dicom": "DICOM", "raster": "raster image", "array": "picture from memory"}
 OUTCOME_PAST = {"fail": "failed", "warn": "warned", "not-run": "did not run", "pass": "passed"}
@@ -199,9 +201,9 @@ def weights(model: Mapping[str, Any]) -> tuple[str, bool] | None:
     """(words, is_a_caution) for ``model.weights_pinned``; None when the record does not say."""
     pinned = model.get("weights_pinned")
     if pinned is True:
-        return "weights match the card's SHA-256", False
+        return WEIGHTS_PINNED, False
     if pinned is False:
-        return "weights not pinned by the card", True
+        return WEIGHTS_NOT_PINNED, True
     return None
 
 

@@ -1,4 +1,8 @@
-"""C-STORE of a case sheet to a real archive (Debian's Orthanc on loopback), found again by its own query."""
+"""C-STORE of a case sheet to a real archive (Debian's Orthanc on loopback), found again by its own query.
+
+Outside sources: DICOM PS3.4 (C-STORE and C-FIND services) as implemented by an independent archive,
+Debian's Orthanc, started for the test.
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,9 @@
-"""Sanity checks on trained tiny models: each must be able to pass and to fail."""
+"""Sanity checks on trained tiny models: each must be able to pass and to fail.
+
+Outside sources: Adebayo et al. 2018 (model-randomisation test), Petsiuk et al. 2018 / Samek et al.
+2017 (deletion: removing the most-attributed pixels first must hurt most, from memory), and the check
+thresholds' reasons in casefile/explain/checks.py (common practice, as cited there).
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,8 @@
-"""explain.run end to end: record shape, finite numbers, worst-outcome status, robustness to NaN and flat maps."""
+"""explain.run end to end: record shape, finite numbers, worst-outcome status, robustness to NaN and flat maps.
+
+Outside sources: RFC 8259 (JSON has no NaN or infinities: json.dumps(allow_nan=False) as the
+reference) and the occlusion grid arithmetic; the record shape is casefile's own contract (DEVELOPERS.md).
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,8 @@
-"""Corrupt and odd inputs give one-line InputErrors naming the file; fuzzed bytes never give anything else."""
+"""Corrupt and odd inputs give one-line InputErrors naming the file; fuzzed bytes never give anything else.
+
+Outside sources: pydicom's bundled test files (open data; their README describes each), DICOM PS3.3
+C.11.2.1.2.1 (window width at least 1), and hypothesis for the fuzzed bytes.
+"""
 
 from __future__ import annotations
 

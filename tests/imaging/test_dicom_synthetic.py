@@ -1,4 +1,9 @@
-"""DICOM loading on synthetic files: Hounsfield phantom, MONOCHROME1, multi-frame, no file meta."""
+"""DICOM loading on synthetic files: Hounsfield phantom, MONOCHROME1, multi-frame, no file meta.
+
+Outside sources: DICOM PS3.3 C.11.1.1.2 (Rescale Slope/Intercept), C.7.6.3.1.2 (MONOCHROME1), PS3.5
+(implicit VR little endian default), the Hounsfield scale's definition (air -1000 HU, water 0 HU), and
+pydicom's bundled SC_rgb_rle_2frame.dcm decoded by pydicom as the reference frames.
+"""
 
 from __future__ import annotations
 

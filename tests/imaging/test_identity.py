@@ -1,4 +1,8 @@
-"""Identifier policy: no direct identifier leaves imaging; keyed pseudonyms; the site key file."""
+"""Identifier policy: no direct identifier leaves imaging; keyed pseudonyms; the site key file.
+
+Outside sources: DICOM PS3.15 Annex E Table E.1-1 (the direct identifiers, partly from memory),
+pydicom's data dictionary (PS3.6 keywords), RFC 2104 HMAC-SHA256 computed by the standard library.
+"""
 
 from __future__ import annotations
 

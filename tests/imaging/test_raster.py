@@ -1,4 +1,8 @@
-"""Raster loading through Pillow: 16-bit grey, RGBA, palette, EXIF orientation, multi-page TIFF."""
+"""Raster loading through Pillow: 16-bit grey, RGBA, palette, EXIF orientation, multi-page TIFF.
+
+Outside sources: the PNG specification (16-bit greyscale, alpha), EXIF 2.3 (Orientation tag) and
+Pillow, whose decoding of each file is the reference.
+"""
 
 from __future__ import annotations
 

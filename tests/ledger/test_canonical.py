@@ -144,3 +144,42 @@ def test_numpy_floats_format_as_plain_numbers():
     assert canonical_bytes({"p": np.float64(0.25), "q": [np.float64(1e21)]}) == b'{"p":0.25,"q":[1e+21]}'
     with pytest.raises(ValidationError):  # not a float subclass: refused rather than guessed
         canonical_bytes({"q": np.float32(0.5)})
+
+
+# ------------------------------------------------------------------ json_ready (the one JSON cleaner)
+def test_json_ready_null_mode_keeps_shape_and_nulls_what_cannot_be_stored():
+    import numpy as np
+
+    from casefile.canonical import json_ready
+
+    # 2**53 + 1 is the first integer an IEEE 754 double cannot hold (IEEE 754-2008, binary64: 53-bit
+    # significand); NaN and infinities have no JSON form (RFC 8259 section 6)
+    value = {"a": np.float32(0.5), "b": (1, float("nan")), 3: np.int64(7), "c": np.bool_(True),
+             "d": 2**53 + 1, "e": None, "f": object()}
+    out = json_ready(value)
+    assert out == {"a": 0.5, "b": [1, None], "3": 7, "c": True, "d": None, "e": None, "f": None}
+    assert type(out["a"]) is float and type(out["3"]) is int and type(out["c"]) is bool
+    canonical_bytes(out)  # everything left can be made canonical
+
+
+def test_json_ready_drop_mode_leaves_out_what_cannot_be_stored_exactly():
+    from casefile.canonical import json_ready
+
+    value = {"ok": 1.5, "nan": float("inf"), "none": None, "lst": [1, float("nan")], "good": [1, 2],
+             "nested": {"x": object(), "y": "s"}}
+    assert json_ready(value, on_bad="drop") == {"ok": 1.5, "good": [1, 2], "nested": {"y": "s"}}
+    assert json_ready(float("nan"), on_bad="drop") is None
+    with pytest.raises(ValueError):
+        json_ready(1, on_bad="keep")
+
+
+@given(st.recursive(st.none() | st.booleans() | st.integers() | st.floats() | st.text(),
+                    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(), inner, max_size=4),
+                    max_leaves=20))
+@settings(max_examples=200, deadline=None)
+def test_json_ready_output_is_always_canonical(value):
+    from casefile.canonical import json_ready
+
+    for mode in ("null", "drop"):
+        out = json_ready(value, on_bad=mode)
+        assert parse(canonical_bytes(out)) == out  # the RFC 8785 form reads back as the same value

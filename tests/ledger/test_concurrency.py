@@ -1,4 +1,8 @@
-"""Two writers at once, and a writer killed mid-batch: the ledger stays gap-free and verifies."""
+"""Two writers at once, and a writer killed mid-batch: the ledger stays gap-free and verifies.
+
+Outside sources: SQLite's locking and WAL documentation (BEGIN IMMEDIATE gives one writer at a time;
+a killed process loses only its open transaction). The gap-free chain is casefile's own rule.
+"""
 
 from __future__ import annotations
 

@@ -147,7 +147,8 @@ def test_the_ledger_package_imports_one_way():
         imports, nested = _ledger_imports(f)
         assert not nested, f"{f.name} imports a ledger module inside a function"
         graph[f.stem] = imports - {f.stem}
-    assert graph["store"] <= {"tables", "derive"}  # the store is at the bottom
+    assert graph["store"] <= {"tables", "derive", "location"}  # the store is at the bottom
+    assert graph["location"] == set()  # where a ledger lives: below the store
     assert "facade" not in set().union(*graph.values())  # only the package imports the facade
     seen: dict[str, int] = {}
 

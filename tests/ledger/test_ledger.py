@@ -1,4 +1,8 @@
-"""Ledger behaviour: schema refusal writes nothing, amendments keep history, seals sign and verify."""
+"""Ledger behaviour: schema refusal writes nothing, amendments keep history, seals sign and verify.
+
+Outside sources: 21 CFR 11.10(e) (a correction must not obscure what was recorded), RFC 8032
+(Ed25519, through the cryptography package); the schemas are JSON Schema 2020-12 (jsonschema).
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,8 @@
-"""Tampering through raw SQL, as an attacker with file access would; verify must name the first bad seq."""
+"""Tampering through raw SQL, as an attacker with file access would; verify must name the first bad seq.
+
+Outside sources: none beyond SHA-256 (hashlib) and the sqlite3 module an attacker would use; the
+hash-chain and seal rules are casefile's own (DESIGN.md, "The ledger").
+"""
 
 from __future__ import annotations
 

@@ -4,6 +4,9 @@ Each crafted archive starts from a real torch.export.save archive and changes on
 attacker could. Where torch 2.13 would run the planted pickle (a ``__reduce__`` that creates a marker
 file), the test checks that the marker does not appear. Archive layout: torch.export.pt2_archive
 (member names read from a real archive written by torch.export.save in the fixture).
+
+Outside sources: torch's own archive format (torch.export.save / torch.export.pt2_archive, read
+from a real archive) and Python's pickle protocol (the opcodes a crafted member uses).
 """
 
 from __future__ import annotations

@@ -1,4 +1,8 @@
-"""Model cards: schema validity, one-line refusals naming file and field, and the canonical digest."""
+"""Model cards: schema validity, one-line refusals naming file and field, and the canonical digest.
+
+Outside sources: jsonschema's meta-schema check (JSON Schema 2020-12), the rfc8785 package (RFC 8785)
+with hashlib for the card digest, RFC 8259 section 8.1 (a byte-order mark is not JSON).
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,8 @@
-"""load_model: the three ways of loading give the same model; mismatched or broken cards are refused."""
+"""load_model: the three ways of loading give the same model; mismatched or broken cards are refused.
+
+Outside sources: hashlib's SHA-256 (FIPS 180-4) for the digests; torch's own loaders (torch.load with
+weights_only, torch.jit, torch.export) as the reference for what each file form holds.
+"""
 
 from __future__ import annotations
 
@@ -9,6 +13,7 @@ import torch
 
 from casefile.errors import ModelError
 from casefile.models import load_model
+from casefile.models.loading import ONE_AT_A_TIME
 from demo_cases.nets import tiny_net
 from tests.models.conftest import TRUSTED, write_card
 
@@ -32,7 +37,10 @@ def test_three_forms_give_identical_outputs(tiny):
         "entry-point", "entry-point", "torchscript", "torch.export"]
     assert all(not m.module.training for m in (by_state, by_entry, by_script, by_export))
     assert (by_state.name, by_state.version, by_state.window) == ("tiny-test", "0.0.1", "file")
-    assert by_script.notes and "TorchScript" in by_script.notes[0] and not by_export.notes
+    assert by_script.notes and "TorchScript" in by_script.notes[0] and not by_script.fixed_batch
+    # exported from a batch-of-one example, the archive's batch is fixed at one (torch.export specialises
+    # static shapes; torch documentation, "torch.export: dynamic shapes"); the model room notes it
+    assert by_export.fixed_batch and by_export.notes == (ONE_AT_A_TIME,) and not by_state.fixed_batch
 
 
 def test_digest_is_sha256_of_the_file_loaded(tiny):

@@ -1,4 +1,8 @@
-"""Preprocessing from the card: channel conversion, resize, normalisation and the ROI mask."""
+"""Preprocessing from the card: channel conversion, resize, normalisation and the ROI mask.
+
+Outside sources: ITU-R BT.601-7 section 2.5.1 (luma weights), Pillow's BILINEAR resize as the
+reference for antialiased resizing, and hand computation of the normalisation.
+"""
 
 from __future__ import annotations
 

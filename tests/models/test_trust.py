@@ -4,6 +4,9 @@ The hostile cards here are the ones an attacker with write access to a card fold
 check is that a marker file the attack would create does not appear, and that the refusal is one line.
 The rules are casefile's own (casefile/models/trust.py, casefile/site.py); Python's own definitions
 decide what a "Python function or class" is (the inspect module).
+
+Outside sources: no outside source applies to the trust rules themselves (casefile's own); Python's
+inspect module is the reference for what counts as a function or class.
 """
 
 from __future__ import annotations

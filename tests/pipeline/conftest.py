@@ -1,13 +1,21 @@
-"""One demo run per test session: the scenario, both models and a ledger that later tests read."""
+"""One demo run per test session (the scenario, both models and a ledger that later tests read), and a
+tiny model of our own for the tests that need no demo."""
 
 from __future__ import annotations
 
+import json
 import shutil
+import warnings
 from pathlib import Path
 
+import numpy as np
 import pytest
+import torch
+from PIL import Image
 
 from casefile.demo import run_demo
+from demo_cases.nets import tiny_net
+from demo_cases.train import ENTRY_POINT
 
 
 @pytest.fixture(scope="session")
@@ -31,3 +39,28 @@ def few_inputs(demo_dir, tmp_path) -> Path:
 def honest(demo_dir) -> tuple[str, str]:
     models = demo_dir / "scenario" / "models"
     return str(models / "casting-honest.pt"), str(models / "casting-honest.card.json")
+
+
+@pytest.fixture(scope="session")
+def tiny(tmp_path_factory) -> dict[str, Path]:
+    """A seeded TinyNet on 32 x 32 grey pictures: state dict, a .pt2 exported at batch one, an unpinned
+    card, and two inputs, one of them named like a person."""
+    d = tmp_path_factory.mktemp("tiny")
+    torch.manual_seed(11)
+    net = tiny_net(width=2).eval()
+    torch.save(net.state_dict(), d / "tiny.pt")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        torch.export.save(torch.export.export(net, (torch.zeros(1, 1, 32, 32),)), str(d / "tiny.pt2"))
+    card = {"name": "tiny-identity", "version": "1", "labels": ["sound", "porosity", "shrinkage", "crack"],
+            "input": {"width": 32, "height": 32, "channels": 1}, "normalisation": {"mean": [0.5], "std": [0.25]},
+            "windowing": "file", "layer": "features.block3", "roi": {"rule": "border", "pixels": 4},
+            "intended_use": "tests only", "entry_point": ENTRY_POINT, "entry_point_args": {"width": 2},
+            "weights": "tiny.pt"}
+    (d / "card.json").write_text(json.dumps(card, indent=2) + "\n")
+    rng = np.random.default_rng(5)
+    inputs = d / "inputs"
+    inputs.mkdir()
+    for name in ("part_0001.png", "smith_john_1961.png"):
+        Image.fromarray(rng.integers(0, 255, (32, 32), dtype=np.uint8)).save(inputs / name)
+    return {"dir": d, "weights": d / "tiny.pt", "pt2": d / "tiny.pt2", "card": d / "card.json", "inputs": inputs}

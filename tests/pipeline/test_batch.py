@@ -1,4 +1,8 @@
-"""`casefile explain` over real batches: bad inputs, JSON lines, resume after SIGINT and SIGKILL."""
+"""`casefile explain` over real batches: bad inputs, JSON lines, resume after SIGINT and SIGKILL.
+
+Outside sources: POSIX signals (SIGINT may be caught, SIGKILL cannot), SQLite's durability of a
+committed transaction; the explain_line schema (JSON Schema, jsonschema) for the JSON lines.
+"""
 
 from __future__ import annotations
 
@@ -162,11 +166,11 @@ def test_torchscript_with_gradcam_is_refused_before_any_input(tmp_path, few_inpu
     models = demo_dir / "scenario" / "models"
     store = tmp_path / "ts.db"
     done = cli(store, "explain", "--model", str(models / "casting-honest.ts"), "--card",
-               str(models / "casting-honest.card.json"), "-q", str(few_inputs))
+               str(models / "casting-honest.ts.card.json"), "-q", str(few_inputs))
     assert done.returncode == 1 and "TorchScript" in done.stderr and done.stderr.count("\n") == 1
     assert _count_cases(store) == 0
     ok = cli(store, "explain", "--model", str(models / "casting-honest.ts"), "--card",
-             str(models / "casting-honest.card.json"), "--methods", "occlusion,gradient", "--patch", "16",
+             str(models / "casting-honest.ts.card.json"), "--methods", "occlusion,gradient", "--patch", "16",
              "--stride", "8", "-q", str(sorted(few_inputs.iterdir())[0]))
     assert ok.returncode == 0, ok.stderr
     led = Ledger(str(store), create=False)

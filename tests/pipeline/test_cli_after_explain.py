@@ -1,4 +1,8 @@
-"""The commands that read a ledger of real cases: sheet, export, audit, sample, review, stats."""
+"""The commands that read a ledger of real cases: sheet, export, audit, sample, review, stats.
+
+Outside sources: DICOM PS3.4 B.5 (Encapsulated PDF Storage SOP Class), PS3.3 C.24.2 (Source Instance
+Sequence), 21 CFR 11.10(e) (an amendment leaves the original visible).
+"""
 
 from __future__ import annotations
 

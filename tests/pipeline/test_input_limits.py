@@ -3,6 +3,9 @@
 The hostile files are those of tests/imaging/hostile.py (PNG and DICOM layouts cited there); the limits
 are casefile's defaults (casefile/site.py). Ledger rules: DESIGN.md (append-only; a failed attempt is an
 entry of kind "failed").
+
+Outside sources: the PNG and DICOM layouts cited in tests/imaging/hostile.py (W3C PNG, DICOM PS3.5);
+no outside source applies to the limits, which are casefile's defaults.
 """
 
 from __future__ import annotations

@@ -1,4 +1,8 @@
-"""Sampling plans: properties (hypothesis), allocation rules and unbiasedness of the risk plan."""
+"""Sampling plans: properties (hypothesis), allocation rules and unbiasedness of the risk plan.
+
+Outside sources: Horvitz & Thompson (1952) for the unbiased weighted estimate, Hamilton's largest
+remainder method for proportional allocation (common practice), hypothesis for the properties.
+"""
 
 import math
 import random

@@ -1,4 +1,8 @@
-"""summarise / format_text: rates, weighted estimates, kappa, lot decisions and pending reviews."""
+"""summarise / format_text: rates, weighted estimates, kappa, lot decisions and pending reviews.
+
+Outside sources: Horvitz & Thompson (1952) estimate and its Poisson-sampling variance, worked by hand
+in the comments; the Wilson interval and Cohen's kappa are checked against libraries in test_agreement.py.
+"""
 
 import pytest
 from scipy.stats import binomtest

@@ -1,4 +1,8 @@
-"""Draw and review entries in a real ledger: redraw, refusals, amendments, tamper evidence."""
+"""Draw and review entries in a real ledger: redraw, refusals, amendments, tamper evidence.
+
+Outside sources: ISO 2859-1 / MIL-STD-105E Tables I and II-A (code letters and sample sizes);
+the draw and review rules are casefile's own.
+"""
 
 import sqlite3
 

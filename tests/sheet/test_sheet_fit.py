@@ -1,4 +1,8 @@
-"""How the case sheet fits its page: one page for a typical case, readable rows, nothing running over."""
+"""How the case sheet fits its page: one page for a typical case, readable rows, nothing running over.
+
+Outside sources: pypdf (reference library) to read the pages back, ISO 216 A4 and US Letter page
+sizes, and solid-set leading of at least 120 % of the type size (common practice in typesetting).
+"""
 
 from __future__ import annotations
 

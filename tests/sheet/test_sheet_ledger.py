@@ -1,4 +1,8 @@
-"""Sheets read through the real Ledger API (DEVELOPERS.md), and many sheets written to a folder."""
+"""Sheets read through the real Ledger API (DEVELOPERS.md), and many sheets written to a folder.
+
+Outside sources: pypdf (reference library) to read the sheets back, the US Letter page size (612 pt
+wide, 8.5 in x 72 pt); the Ledger API is casefile's own contract (DEVELOPERS.md).
+"""
 
 from __future__ import annotations
 

@@ -2,6 +2,9 @@
 
 The region-of-interest line is looked for in the drawn page where the layout puts it; the text is
 checked for Python's spelling of values (braces, None, True/False), which a reader must never see.
+
+Outside sources: poppler's pdftoppm (reference renderer) and pypdf (reference library); no outside
+source applies to which spellings a reader must never see, which is the project's rule.
 """
 
 from __future__ import annotations

@@ -2,6 +2,9 @@
 
 The wording targets are the ones issue #10 asks for ("patch 16 px, stride 8 px, fill: blur σ 4",
 "top 3 of 4 classes", "raster image", "DICOM", "Sent for a second read: region focus failed").
+
+Outside sources: none apply to wording; the targets are the project's own (issue #10), and the recorded
+values they turn into words come from casefile.explain as it records them.
 """
 
 from __future__ import annotations
