@@ -5,7 +5,15 @@ from __future__ import annotations
 import argparse
 import sys
 
-from casefile.cli.common import add_case_filters, case_filters, command, open_ledger, print_entry, print_rows
+from casefile.cli.common import (
+    CASE_ID_HELP,
+    add_case_filters,
+    case_filters,
+    command,
+    open_ledger,
+    print_entry,
+    print_rows,
+)
 
 
 def _check_pair(text: str) -> tuple[str, str]:
@@ -73,10 +81,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "history", cmd_history, "everything recorded about one case: the case and which checks "
                  "warned or failed, amendments, reviews, adjudications")
-    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
 
     sp = command(sub, "amend", cmd_amend, "record a correction to a case; the original entry stays visible")
-    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("--author", required=True, metavar="ID", help="who makes the correction")
     sp.add_argument("--reason", required=True, metavar="TEXT", help="why the record is corrected")
     sp.add_argument("--label", metavar="L", help="the corrected label, if that is the correction; one of the "

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from casefile.cli.common import (
+    CASE_ID_HELP,
     add_case_filters,
     case_filters,
     command,
@@ -114,7 +115,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp = command(sub, "review", cmd_review, "record a reader's verdict on a case, for one draw",
                  epilog="A reader reads a case once per draw; to correct a reading, pass --amends SEQ "
                         "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`).")
-    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("--reader", required=True, metavar="ID")
     sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
     sp.add_argument("--label", metavar="L", help="the reader's label; one of the model's labels unless --new-label")
@@ -126,7 +127,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "adjudicate", cmd_adjudicate, "record a decision on a case where second readers disagree "
                  "with each other (refused when they do not)")
-    sp.add_argument("case_id", metavar="CASE_ID")
+    sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("--by", required=True, metavar="ID", help="who decides (not one of the readers in conflict)")
     sp.add_argument("--label", required=True, metavar="L",
                     help="the label decided; one of the model's labels unless --new-label")
