@@ -18,7 +18,7 @@ from casefile.errors import DuplicateCaseError, ValidationError
 from casefile.ledger import Ledger
 from casefile.ledger import tables as t
 from tests.ledger.bodies import amendment_body, case_body
-from tests.ledger.sealing import cli, one_line_refusal
+from tests.ledger.sealing import cli, refused_line
 
 PACKAGE = Path(__file__).resolve().parents[2] / "casefile" / "ledger"
 
@@ -103,7 +103,8 @@ def test_rebuild_command_records_that_it_ran(full):
     assert line["rows"]["case_checks"] == 1 and line["rows"]["adjudications"] == 1
     with Ledger(str(full)) as led:
         assert led.get(8).kind == "rebuild" and led.verify().ok
-    one_line_refusal(cli(full, "rebuild", "--reason", "  "), "reason is empty")
+    line = refused_line(cli(full, "rebuild", "--reason", "  "))
+    assert "reason is empty" in line, line
     assert cli(full, "rebuild").returncode == 2  # --reason is required
     with Ledger(str(full)) as led:
         assert led.count() == 8

@@ -8,6 +8,8 @@ ledger keeps), checked on invented cases; the statistics they feed are checked a
 scikit-learn and statsmodels elsewhere.
 """
 
+import re
+
 import pytest
 
 from casefile.errors import ValidationError
@@ -75,7 +77,12 @@ def test_a_draw_counts_only_its_own_readings(ledger):
     ({"verdict": "unsure", "new_label": True}, "--new-label given without a label"),
 ])
 def test_reader_labels_are_checked_against_the_model_before_any_write(ledger, kwargs, words):
-    _refused(ledger, record_review, "rv-00001", reader="dr-a", words=words, **kwargs)
+    head = ledger.head()
+    with pytest.raises(ValidationError) as info:
+        record_review(ledger, "rv-00001", reader="dr-a", **kwargs)
+    message = str(info.value)
+    assert re.search(words, message) and "\n" not in message, message
+    assert ledger.head() == head  # nothing was written
 
 
 def test_a_new_label_is_recorded_as_such(ledger):
