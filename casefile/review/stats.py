@@ -35,6 +35,7 @@ from typing import Any
 from casefile.cautions import AGREEMENT_CAUTION
 from casefile.ledger import Ledger
 from casefile.review.agreement import cohen_kappa, confusion_table, fleiss_kappa, wilson_interval
+from casefile.review.calibration import reading_points, reliability
 from casefile.review.lot import lot_decision
 from casefile.review.readings import (
     current_readings,
@@ -143,9 +144,11 @@ def reader_conflicts(current: Mapping[str, Readers], model_labels: Mapping[str, 
 
 def summarise_data(draws: list[Mapping[str, Any]], reviews: list[Mapping[str, Any]],
                    model_labels: Mapping[str, str],
-                   adjudications: list[Mapping[str, Any]] | None = None) -> dict[str, Any]:
+                   adjudications: list[Mapping[str, Any]] | None = None,
+                   confidence: Mapping[str, float | None] | None = None) -> dict[str, Any]:
     """The pure part of ``summarise``: draw and review bodies in seq order (a ``seq`` key in each review,
-    when present, is its entry's seq), the model label per case, adjudication bodies."""
+    when present, is its entry's seq), the model label per case, adjudication bodies, and the model's
+    confidence per case (for the reliability bins; left out when not given)."""
     readings = current_readings(reviews)
     current = latest_by_reader(readings)
     per_draw = []
@@ -166,6 +169,7 @@ def summarise_data(draws: list[Mapping[str, Any]], reviews: list[Mapping[str, An
         "pending": sorted({c for d in per_draw for c in d["pending"]}),
         "warnings": warnings,
         "caution": AGREEMENT_CAUTION,
+        **({"reliability": reliability(reading_points(current, confidence))} if confidence is not None else {}),
     }
 
 
@@ -174,8 +178,10 @@ def summarise(ledger: Ledger) -> dict[str, Any]:
     draws = [e.body for e in ledger.entries("draw")]
     reviews = [{**e.body, "seq": e.seq} for e in ledger.entries("review")]
     adjudications = [e.body for e in ledger.entries("adjudication")]
-    labels = {row["case_id"]: row["label"] for row in ledger.cases()}
-    return summarise_data(draws, reviews, labels, adjudications)
+    rows = ledger.cases()
+    labels = {row["case_id"]: row["label"] for row in rows}
+    confidence = {row["case_id"]: row["confidence"] for row in rows}
+    return summarise_data(draws, reviews, labels, adjudications, confidence)
 
 
 __all__ = ["agreement", "describe_draw", "format_text", "reader_conflicts", "summarise", "summarise_data",
