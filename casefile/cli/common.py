@@ -29,10 +29,10 @@ def store(args: argparse.Namespace) -> str:
     return args.store or os.environ.get("CASEFILE_STORE") or DEFAULT_STORE
 
 
-def open_ledger(args: argparse.Namespace, create: bool = False) -> Ledger:
+def open_ledger(args: argparse.Namespace, create: bool = False, allow_outdated: bool = False) -> Ledger:
     from casefile.ledger import Ledger
 
-    return Ledger(store(args), create=create)
+    return Ledger(store(args), create=create, allow_outdated=allow_outdated)
 
 
 def resolve_case_ids(args: argparse.Namespace) -> None:
