@@ -136,4 +136,5 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--draw", metavar="DRAW_ID", help="judge the readings of this draw (default: each reader's latest)")
 
     command(sub, "stats", cmd_stats, "disagreement rates with intervals, kappa (model vs readers, reader pairs, "
-            "Fleiss' for three or more), confusion tables, lot decisions; each figure names its n")
+            "Fleiss' for three or more), confusion tables, lot decisions, and the expected calibration error of "
+            "the model's confidence against readers' agreement; each figure names its n")
