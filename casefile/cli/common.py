@@ -65,8 +65,7 @@ def command(sub: argparse._SubParsersAction, name: str, fn: Handler | None, help
             check: Check | None = None, epilog: str | None = None) -> argparse.ArgumentParser:
     """Add one command. ``check(args)`` runs after parsing and returns a usage problem (exit 2) or None.
     ``fn`` None: a group whose actions are added with ``subcommand``."""
-    sp = sub.add_parser(name, help=help_, description=help_, epilog=epilog,
-                        formatter_class=argparse.RawDescriptionHelpFormatter)
+    sp = sub.add_parser(name, help=help_, description=help_, epilog=epilog)
     sp.set_defaults(func=fn, check=check, subparser=sp)
     sp.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
                     help="show the full traceback of an error")

@@ -116,11 +116,11 @@ def register(sub: argparse._SubParsersAction) -> None:
                  epilog="A reader reads a case once per draw; to correct a reading, pass --amends SEQ "
                         "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`).")
     sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
-    sp.add_argument("--reader", required=True, metavar="ID")
+    sp.add_argument("--reader", required=True, metavar="ID", help="who read the case (a reader id of your site)")
     sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
     sp.add_argument("--label", metavar="L", help="the reader's label; one of the model's labels unless --new-label")
     sp.add_argument("--new-label", action="store_true", help="the label is not one the model knows; recorded as such")
-    sp.add_argument("--note", metavar="TEXT")
+    sp.add_argument("--note", metavar="TEXT", help="the reader's note, kept with the reading")
     sp.add_argument("--amends", type=positive_int, metavar="SEQ", help="this corrects the reader's reading SEQ")
     sp.add_argument("--draw", metavar="DRAW_ID",
                     help="the draw this reading is for (default: the latest draw holding the case)")
