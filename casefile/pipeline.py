@@ -16,6 +16,7 @@ from casefile.errors import (
     InputError,
     OutputError,
     ValidationError,
+    one_line,
 )
 from casefile.files import write_atomic
 from casefile.ledger import Ledger, utc_now
@@ -243,8 +244,7 @@ def _record_scan(ledger: Ledger, name: str, scan: Scan, loaded: LoadedModel, set
     except CasefileError as exc:
         return failed(str(exc), "explain")
     except (RuntimeError, ValueError) as exc:  # torch refuses something about this model or input
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        return failed(f"{base}: the explanation could not be computed: {first}", "explain")
+        return failed(f"{base}: the explanation could not be computed: {one_line(exc)}", "explain")
     try:
         entry = ledger.append("case", rec.body, blobs=rec.blobs)
     except ValidationError as exc:

@@ -24,7 +24,7 @@ import numpy as np
 import torch
 from torch import nn
 
-from casefile.errors import ModelError
+from casefile.errors import ModelError, one_line
 from casefile.models.archive import check_export_archive, check_export_graph
 from casefile.models.card import card_digest, read_card
 from casefile.models.preprocess import preprocess_pixels, roi_mask, rules_record
@@ -217,7 +217,7 @@ def check_against_card(module: nn.Module, card: dict[str, Any], card_name: str) 
             out = module(x)
     except Exception as exc:
         shape = f"[1, {spec['channels']}, {spec['height']}, {spec['width']}]"
-        msg = str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__
+        msg = one_line(exc, last=True)
         raise ModelError(f"{card_name}: the model fails on a {shape} input as the card describes: {msg}") from None
     finally:
         if handle is not None:
