@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import hashlib
 import os
 import sys
 from collections.abc import Callable, Iterator, Sequence
@@ -18,7 +17,7 @@ from casefile.errors import (
     ValidationError,
     one_line,
 )
-from casefile.files import write_atomic
+from casefile.files import sha256_file, write_atomic
 from casefile.ledger import Ledger, utc_now
 from casefile.record import CaseRecord, build, settings_digest
 from casefile.runs import (
@@ -118,11 +117,7 @@ def iter_inputs(paths: Sequence[str | os.PathLike[str]]) -> Iterator[Path]:
 
 def _file_digest(path: Path) -> str | None:
     try:
-        h = hashlib.sha256()
-        with open(path, "rb") as f:
-            for chunk in iter(lambda: f.read(1 << 20), b""):
-                h.update(chunk)
-        return h.hexdigest()
+        return sha256_file(path)
     except OSError:
         return None
 
