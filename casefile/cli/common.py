@@ -11,6 +11,8 @@ from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
+from casefile.flags import OUTCOMES
+
 if TYPE_CHECKING:
     from casefile.ledger import Ledger
 
@@ -141,7 +143,6 @@ def share(text: str) -> float:
     return value
 
 
-STATUSES = ["pass", "warn", "fail", "not-run"]
 
 
 def add_case_filters(sp: argparse.ArgumentParser, what: str = "") -> None:
@@ -149,7 +150,7 @@ def add_case_filters(sp: argparse.ArgumentParser, what: str = "") -> None:
     pre = f"{what}: " if what else ""
     sp.add_argument("--model", help=f"{pre}model name, name@version, or digest prefix (8+ hex digits)")
     sp.add_argument("--label", help=f"{pre}predicted label")
-    sp.add_argument("--status", choices=STATUSES, help=f"{pre}worst check outcome")
+    sp.add_argument("--status", choices=OUTCOMES, help=f"{pre}worst check outcome")
     sp.add_argument("--since", metavar="T", type=since_time,
                     help=f"{pre}recorded at or after T (ISO 8601; UTC unless a zone is given)")
     sp.add_argument("--until", metavar="T", type=until_time,

@@ -16,7 +16,9 @@ from casefile.cli.common import (
     print_entry,
     share,
 )
-from casefile.review.plans import DEFAULT_MINIMUM
+from casefile.review.lot import LEVELS
+from casefile.review.plans import ALLOCATIONS, DEFAULT_MINIMUM, PLANS, STRATA
+from casefile.review.readings import VERDICTS
 
 PLAN_HELP = ("random: simple random sample (needs --size); stratified: by label, status or flag (needs --size); "
              "risk: every flagged case (a check sent it to a person) plus a simple random sample of the rest, at "
@@ -96,15 +98,15 @@ def _aql(text: str) -> float:
 def register(sub: argparse._SubParsersAction) -> None:
     sp = command(sub, "sample", cmd_sample, "draw cases for a second read with a sampling plan; the draw is "
                  "recorded", check=_sample_usage)
-    sp.add_argument("--plan", required=True, choices=["random", "stratified", "risk", "lot"], help=PLAN_HELP)
+    sp.add_argument("--plan", required=True, choices=PLANS, help=PLAN_HELP)
     sp.add_argument("--size", type=positive_int, metavar="N", help="sample size (random, stratified, risk)")
     sp.add_argument("--aql", type=_aql, metavar="A", help="acceptable quality limit in %% (lot plan)")
-    sp.add_argument("--level", choices=["I", "II", "III"], default="II", help="general inspection level (lot)")
+    sp.add_argument("--level", choices=LEVELS, default="II", help="general inspection level (lot)")
     sp.add_argument("--seed", type=non_negative_int, default=0, metavar="S",
                     help="seed; the same seed redraws the same list")
-    sp.add_argument("--allocation", choices=["proportional", "equal"], default="proportional",
+    sp.add_argument("--allocation", choices=ALLOCATIONS, default="proportional",
                     help="stratified plan: sample in proportion to each stratum, or the same number from each")
-    sp.add_argument("--strata", choices=["label", "status", "label+status", "flagged"], default="label",
+    sp.add_argument("--strata", choices=STRATA, default="label",
                     help="stratified plan: what defines a stratum")
     sp.add_argument("--share", type=share, metavar="P", help="risk plan: share of unflagged cases to draw")
     sp.add_argument("--minimum", type=positive_int, default=DEFAULT_MINIMUM, metavar="N",
@@ -117,7 +119,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                         "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`).")
     sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("--reader", required=True, metavar="ID", help="who read the case (a reader id of your site)")
-    sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
+    sp.add_argument("--verdict", required=True, choices=VERDICTS)
     sp.add_argument("--label", metavar="L", help="the reader's label; one of the model's labels unless --new-label")
     sp.add_argument("--new-label", action="store_true", help="the label is not one the model knows; recorded as such")
     sp.add_argument("--note", metavar="TEXT", help="the reader's note, kept with the reading")
