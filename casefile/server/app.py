@@ -201,6 +201,10 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
     def map_layer(draw_id: str, case_id: str, method: str) -> Response:
         return _png(views.layer_png(ledger, views.place(ledger, draw_id, case_id), method))
 
+    @app.get("/scale.png")
+    def scale_picture() -> Response:
+        return _png(views.scale_png())
+
     @app.get("/summary")
     def summary_page() -> str:
         s = summarise(ledger)

@@ -19,7 +19,7 @@ import numpy as np
 from casefile.errors import CasefileError
 from casefile.ledger import Entry, Ledger
 from casefile.review.readings import current_readings
-from casefile.sheet.colours import OVERLAY_RAMP, apply_map, normalise_map, png_bytes
+from casefile.sheet.colours import OVERLAY_RAMP, apply_map, normalise_map, png_bytes, scale_bar
 
 DRAW_ID = re.compile(r"^d-[0-9a-f]{12}$")
 CASE_ID = re.compile(r"^[A-Za-z0-9_-][A-Za-z0-9._-]{3,63}$")  # the case schema's ids, never "." or ".."
@@ -28,6 +28,7 @@ VIEWS = ("overlay", "side")
 OPACITY_STEPS = tuple(range(0, 101, 10))
 DEFAULT_OPACITY = 60
 LAYER_MAX_PIXELS = 4096 * 4096
+METHOD_NAMES = {"gradcam": "Grad-CAM", "occlusion": "occlusion", "gradient": "gradient saliency"}
 
 
 class NotInQueue(CasefileError):
@@ -96,7 +97,7 @@ def case_view(ledger: Ledger, where: Place, reader: str) -> dict[str, Any]:
     if mine is not None:
         others = sorted((dict(r) for (c, who, _), r in readings.items() if c == body["case_id"] and who != reader),
                         key=lambda r: r["seq"])
-    maps = [{"method": m["method"], "overlay": bool(m.get("overlay_blob")), "layer": bool(m.get("raw_blob"))}
+    maps = [{"method": m["method"], "title": METHOD_NAMES.get(m["method"], m["method"]), "overlay": bool(m.get("overlay_blob")), "layer": bool(m.get("raw_blob"))}
             for m in body.get("maps", []) if METHOD.fullmatch(str(m.get("method", "")))]
     result = body["result"]
     return {
@@ -158,6 +159,11 @@ def layer_png(ledger: Ledger, where: Place, method: str) -> bytes:
     return png_bytes(rgba)
 
 
+def scale_png() -> bytes:
+    """The colour scale of the maps, from little influence (left) to strong (right)."""
+    return png_bytes(scale_bar(256, 14))
+
+
 def opacity_step(text: str | None) -> int:
     """The opacity asked for in percent, to the nearest step of ten; the default when not a number."""
     try:
@@ -168,4 +174,4 @@ def opacity_step(text: str | None) -> int:
 
 
 __all__ = ["CASE_ID", "DRAW_ID", "DEFAULT_OPACITY", "NotInQueue", "OPACITY_STEPS", "Place", "VIEWS", "case_view",
-           "display_png", "layer_png", "my_reading", "opacity_step", "overlay_png", "place", "queue"]
+           "display_png", "layer_png", "my_reading", "opacity_step", "overlay_png", "place", "queue", "scale_png"]

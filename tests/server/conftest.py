@@ -1,6 +1,6 @@
 """A small real ledger for the review-page tests: a seeded tiny model explains four generated 32 x 32
-pictures through the pipeline (display image, raw maps and overlays as blobs), a random draw takes all
-four, and two readers have accounts; ``ben`` has already read one case. Also a live server on a free
+pictures through the pipeline (display image, raw maps and overlays as blobs), a random draw takes three
+of the four, and two readers have accounts; ``ben`` has already read one case. Also a live server on a free
 loopback port, driven by the tests through http.client and a headless Chromium."""
 
 from __future__ import annotations
@@ -59,15 +59,17 @@ def built(tmp_path_factory) -> dict:
     summary = explain_batch(led, inputs, loaded, RunSettings(methods=("gradcam", "occlusion"), patch=8, stride=4),
                             progress=False)
     assert summary.recorded == 4, summary.text()
-    entry = draw(led, "random", size=4, seed=1)
+    entry = draw(led, "random", size=3, seed=1)
     for reader, pw in PASSWORDS.items():
         add_reader(led, reader, pw, pw)
     first = entry.body["members"][0]["case_id"]
     record_review(led, first, reader="ben", verdict="disagree", label="crack", note="ben-secret-note",
                   draw_id=entry.body["draw_id"])
+    members = [m["case_id"] for m in entry.body["members"]]
+    outside = next(r["case_id"] for r in led.cases() if r["case_id"] not in members)
     led.close()
-    return {"store": store, "draw_id": entry.body["draw_id"], "first": first,
-            "members": [m["case_id"] for m in entry.body["members"]]}
+    return {"store": store, "draw_id": entry.body["draw_id"], "first": first, "members": members,
+            "outside": outside}
 
 
 @pytest.fixture()
