@@ -22,6 +22,14 @@ def _passwords(reader_id: str) -> tuple[str, str]:
     return lines[0], lines[1]
 
 
+def read_password(reader_id: str) -> str:
+    """One password: typed at the terminal without echo, or the first line of standard input."""
+    if sys.stdin.isatty():
+        return getpass.getpass(f"password for {reader_id}: ")
+    lines = sys.stdin.read(4096).splitlines()
+    return lines[0] if lines else ""
+
+
 def cmd_reader_add(args: argparse.Namespace) -> int:
     from casefile.review.accounts import add_reader, check_reader_id
 

@@ -6,7 +6,9 @@ N = 2**14, r = 8, p = 1 (the interactive-login cost RFC 7914 section 2 cites fro
 
 Nobody can write in another reader's name: the *first* ``reader`` entry for an id is that reader's
 account and is never replaced. ``add_reader`` refuses an id that already has one, and a later entry for
-the same id (appended past this module) is never read. Every refusal comes before anything is written.
+the same id (appended past this module) is never read. ``casefile review --reader ID`` asks for the
+password of a reader who has an account (``confirm_reader``). Every refusal comes before anything is
+written.
 """
 
 from __future__ import annotations
@@ -74,6 +76,22 @@ def reader_accounts(ledger: Ledger) -> dict[str, Entry]:
     return out
 
 
+def confirm_reader(ledger: Ledger, reader_id: str, password: str | None, what: str) -> None:
+    """Refuse (``ValidationError``) a ``password`` that is not ``reader_id``'s, when that reader has an
+    account; a reader without one needs none (readings recorded before accounts existed stay valid)."""
+    account = reader_account(ledger, reader_id)
+    if account is None:
+        return
+    if password is None or not password_matches(account.body["password"], password):
+        raise ValidationError(f"{what}: {reader_id} has a reader account and the password given is not "
+                              "theirs; nothing was recorded")
+
+
+def needs_password(ledger: Ledger, reader_id: str) -> bool:
+    """True when ``reader_id`` has an account, so writing in their name needs their password."""
+    return reader_account(ledger, reader_id) is not None
+
+
 def add_reader(ledger: Ledger, reader_id: str, password: str, again: str) -> Entry:
     """Append a ``reader`` account; refused (nothing written) for a malformed or taken id, two passwords
     that differ, or a password shorter than ``MIN_PASSWORD`` characters."""
@@ -95,5 +113,5 @@ def add_reader(ledger: Ledger, reader_id: str, password: str, again: str) -> Ent
                                     "added_at": utc_now()})
 
 
-__all__ = ["MIN_PASSWORD", "READER_ID", "READER_ID_RULE", "SCRYPT", "add_reader", "check_reader_id",
-           "hash_password", "password_matches", "reader_account", "reader_accounts", "scrypt_hex"]
+__all__ = ["MIN_PASSWORD", "READER_ID", "READER_ID_RULE", "SCRYPT", "add_reader", "check_reader_id", "confirm_reader",
+           "hash_password", "needs_password", "password_matches", "reader_account", "reader_accounts", "scrypt_hex"]

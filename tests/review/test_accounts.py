@@ -98,3 +98,21 @@ def test_reader_add_reads_the_password_twice_from_standard_input(tmp_path):
     led = Ledger(str(store))
     assert [e.body["reader"] for e in led.entries()] == ["ana"]
     assert password_matches(led.get(1).body["password"], "ana's own password")
+
+
+def test_the_review_command_asks_an_account_holder_for_their_password(ledger):
+    store = Path(ledger.path)
+    add_reader(ledger, "ana", "ana's own password", "ana's own password")
+    head = ledger.head()
+    wrong = _cli(store, "review", "rv-00001", "--reader", "ana", "--verdict", "agree", stdin="a guess at it\n")
+    assert wrong.returncode == 1 and wrong.stderr.count("\n") == 1
+    assert "ana has a reader account and the password given is not theirs" in wrong.stderr
+    empty = _cli(store, "review", "rv-00001", "--reader", "ana", "--verdict", "agree", stdin="")
+    assert empty.returncode == 1 and "not theirs" in empty.stderr
+    assert ledger.head() == head
+    right = _cli(store, "review", "rv-00001", "--reader", "ana", "--verdict", "agree", stdin="ana's own password\n")
+    assert right.returncode == 0, right.stderr
+    plain = _cli(store, "review", "rv-00002", "--reader", "zed", "--verdict", "unsure", stdin="")
+    assert plain.returncode == 0, plain.stderr  # a reader without an account needs no password
+    assert [(e.body["reader"], e.body["case_id"]) for e in ledger.entries("review")] == \
+        [("ana", "rv-00001"), ("zed", "rv-00002")]
