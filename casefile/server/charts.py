@@ -104,8 +104,6 @@ def reliability_svg(rel: Mapping[str, Any] | None) -> str:
                      f'stroke="{GRID}" />')
         parts.append(_text(rel_x(0) - 6, rel_y(tick) + 4, f"{tick:.1f}", size=11, anchor="end"))
         parts.append(_text(rel_x(tick), rel_y(0) + 16, f"{tick:.1f}", size=11, anchor="middle"))
-    parts.append(f'<line x1="{rel_x(0):.1f}" y1="{rel_y(0):.1f}" x2="{rel_x(1):.1f}" y2="{rel_y(1):.1f}" '
-                 f'stroke="{INK}" stroke-dasharray="5 4" />')
     parts.append(_text(rel_x(0.5), rel_y(0) + 36, "model confidence", anchor="middle"))
     parts.append(f'<text x="16" y="{rel_y(0.5):.1f}" font-size="12" text-anchor="middle" fill="{INK}" {FONT} '
                  f'transform="rotate(-90 16 {rel_y(0.5):.1f})">share of readings agreeing</text>')
@@ -123,6 +121,9 @@ def reliability_svg(rel: Mapping[str, Any] | None) -> str:
                      f'<circle cx="{rel_x(conf):.2f}" cy="{top:.2f}" r="4" fill="{MARK}" />'
                      + _text(rel_x((b["low"] + b["high"]) / 2), top - 6, f"n={b['n']}", size=10, anchor="middle")
                      + "</g>")
+    # the diagonal goes over the bars, so it shows where a bar crosses it
+    parts.append(f'<line x1="{rel_x(0):.1f}" y1="{rel_y(0):.1f}" x2="{rel_x(1):.1f}" y2="{rel_y(1):.1f}" '
+                 f'stroke="{INK}" stroke-dasharray="5 4" />')
     if not (rel or {}).get("n"):
         parts.append(_text(rel_x(0.5), rel_y(0.5), "no agree or disagree readings yet", anchor="middle"))
     parts.append("</svg>")
