@@ -1,7 +1,8 @@
 """The review page as a Flask application: sign-in, the reader's queue, a case, the verdict, the summary.
 
 Every request but the sign-in page and the style sheet needs a live session; every POST also needs the
-CSRF token that came with the form (the sign-in form's token is tied to a cookie of its own). Each
+CSRF token that came with the form (the sign-in form's token is tied to a cookie of its own), and
+every request a Host header that names a loopback address. Each
 refusal is a page with one line and writes nothing; the only write besides a verdict is a
 ``sign_in_failed`` entry (casefile.server.signin). Addresses are checked against fixed patterns and the
 ledger before anything else is read: a draw, case, map or picture that is not in the reader's queue is
@@ -10,6 +11,7 @@ ledger before anything else is read: a draw, case, map or picture that is not in
 
 from __future__ import annotations
 
+import ipaddress
 import secrets
 import time
 from collections.abc import Callable
@@ -40,6 +42,22 @@ SECURITY_HEADERS = {
 }
 
 
+def loopback_host(host: str) -> bool:
+    """True when a request's Host header names a loopback address (with or without a port): anything
+    else reached this loopback server through a name pointed at it (DNS rebinding) and is refused."""
+    name = host.strip().lower()
+    if name.startswith("["):
+        name = name[1:].split("]", 1)[0]
+    elif name.count(":") == 1:
+        name = name.split(":", 1)[0]
+    if name == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(name).is_loopback
+    except ValueError:
+        return False
+
+
 def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
                clock: Callable[[], float] = time.time, sign_in_limit: int | None = None) -> Flask:
     """The review page over ``ledger``. ``clock`` (seconds) drives session expiry and the sign-in limit."""
@@ -59,6 +77,9 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
 
     @app.before_request
     def _load_session() -> Response | None:
+        if not loopback_host(request.host):
+            g.session, g.session_state = None, "none"
+            return refuse(400, "this page answers only on a loopback address (127.0.0.1, ::1 or localhost)")
         state, s = sessions.find(request.cookies.get(SESSION_COOKIE))
         g.session, g.session_state = s, state
         if request.endpoint in ("sign_in", "static") or request.endpoint is None:
@@ -220,4 +241,4 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
     return app
 
 
-__all__ = ["FORM_COOKIE", "SESSION_COOKIE", "create_app"]
+__all__ = ["FORM_COOKIE", "SESSION_COOKIE", "create_app", "loopback_host"]

@@ -31,16 +31,18 @@ class Client:
         self.host, self.port = parts.hostname, parts.port
         self.cookies: dict[str, str] = {}
 
-    def send(self, method: str, path: str, form: dict[str, str] | None = None) -> Reply:
+    def send(self, method: str, path: str, form: dict[str, str] | None = None,
+             headers: dict[str, str] | None = None) -> Reply:
         conn = http.client.HTTPConnection(self.host, self.port, timeout=30)
-        headers = {}
+        headers = dict(headers or {})
         if self.cookies:
             headers["Cookie"] = "; ".join(f"{k}={v}" for k, v in self.cookies.items())
         body = None
         if form is not None:
             body = urlencode(form)
             headers["Content-Type"] = "application/x-www-form-urlencoded"
-        conn.putrequest(method, path, skip_accept_encoding=True)  # the path goes out exactly as given
+        # the path goes out exactly as given; a Host header of the test's own replaces the usual one
+        conn.putrequest(method, path, skip_host="Host" in headers, skip_accept_encoding=True)
         for k, v in {**headers, "Content-Length": str(len(body or ""))}.items():
             conn.putheader(k, v)
         conn.endheaders(body.encode() if body else None)

@@ -215,3 +215,20 @@ def test_every_page_carries_a_content_security_policy(server):
     got = Client(base).get("/sign-in")
     assert "default-src 'none'" in got.headers["content-security-policy"]
     assert got.headers["x-content-type-options"] == "nosniff"
+
+
+@pytest.mark.parametrize("host", ["evil.example:8765", "10.1.2.3", "attacker.test", "127.0.0.1.evil.test:80"])
+def test_a_host_header_that_is_not_loopback_is_refused(server, host):
+    """A name pointed at 127.0.0.1 by someone else's DNS (rebinding) gets nothing, not even the form."""
+    base, ledger, _ = server
+    before = state(ledger)
+    c = Client(base)
+    got = c.send("GET", "/sign-in", headers={"Host": host})
+    assert got.status == 400 and "only on a loopback address" in got.text
+    assert "casefile_form" not in c.cookies
+    posted = c.send("POST", "/sign-in", {"csrf": "x", "reader": "ana", "password": "guess guess"},
+                    headers={"Host": host})
+    assert posted.status == 400
+    assert state(ledger) == before
+    for ok in ("127.0.0.1:8765", "localhost", "[::1]:8765"):
+        assert Client(base).send("GET", "/sign-in", headers={"Host": ok}).status == 200
