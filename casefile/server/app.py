@@ -24,7 +24,6 @@ from casefile.cautions import AGREEMENT_CAUTION, CAUTION_TITLE, PAGE_CAUTIONS
 from casefile.errors import CasefileError, ValidationError
 from casefile.ledger import Ledger
 from casefile.review.readings import VERDICTS, record_review
-from casefile.review.stats import summarise
 from casefile.server import charts, views
 from casefile.server.sessions import DEFAULT_MINUTES, Session, Sessions, same_token
 from casefile.server.signin import SignInGuard
@@ -228,7 +227,7 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
 
     @app.get("/summary")
     def summary_page() -> str:
-        s = summarise(ledger)
+        s = views.summary(ledger, g.session.reader)
         rel = s.get("reliability")
         return render_template("summary.html", s=s, rates_svg=charts.draw_rates_svg(s["draws"]),
                                reliability_svg=charts.reliability_svg(rel), rel=rel,

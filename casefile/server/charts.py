@@ -36,7 +36,8 @@ def _pct(v: float) -> str:
 
 def draw_rates_svg(draws: Sequence[Mapping[str, Any]]) -> str:
     """One row per draw: the disagreement rate among its reviewed members (dot) and its 95 % Wilson
-    interval (line), on a 0..1 axis; a draw with no readings says so."""
+    interval (line), on a 0..1 axis; a draw with no readings says so, and a draw marked
+    ``waiting_for_you`` shows no figure until the reader has read their cases in it."""
     height = RATE_TOP + RATE_ROW * max(len(draws), 1) + 44
     width = RATE_LEFT + RATE_WIDTH + 40
     parts = [f'<svg xmlns="http://www.w3.org/2000/svg" class="chart" role="img" width="{width}" '
@@ -56,6 +57,11 @@ def draw_rates_svg(draws: Sequence[Mapping[str, Any]]) -> str:
         y = RATE_TOP + RATE_ROW * i + RATE_ROW / 2
         parts.append(_text(8, y - 2, f"{d['draw_id']} ({d['plan']})", size=12, weight="bold"))
         k, n = d["disagreements"], d["reviewed"]
+        if d.get("waiting_for_you"):
+            parts.append(_text(8, y + 12, f"{d['members']} drawn", size=11))
+            parts.append(_text(RATE_LEFT + 6, y + 4, f"shown once you have read your {d['waiting_for_you']} "
+                               "waiting case(s)", size=12))
+            continue
         parts.append(_text(8, y + 12, f"{k} of {n} reviewed, {d['members']} drawn", size=11))
         if d.get("rate") is None:
             parts.append(_text(RATE_LEFT + 6, y + 4, "no readings yet", size=12))

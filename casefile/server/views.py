@@ -4,7 +4,8 @@ layer for the opacity control). No web framework here.
 
 A case is in a reader's queue for a draw when it is one of the draw's members; it *waits* until the
 reader has a current reading of it for that draw. Other readers' verdicts on the case are handed out
-only once this reader has answered for this draw, so reads stay independent.
+only once this reader has answered for this draw, and the summary leaves out every case still waiting
+for this reader, so reads stay independent.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ import numpy as np
 from casefile.errors import CasefileError
 from casefile.ledger import Entry, Ledger
 from casefile.review.readings import current_readings
+from casefile.review.stats import summarise_data
 from casefile.sheet.colours import OVERLAY_RAMP, apply_map, normalise_map, png_bytes, scale_bar
 
 DRAW_ID = re.compile(r"^d-[0-9a-f]{12}$")
@@ -66,6 +68,30 @@ def queue(ledger: Ledger, reader: str) -> list[dict[str, Any]]:
         out.append({"draw_id": b["draw_id"], "plan": b["plan"], "drawn_at": b.get("drawn_at"),
                     "waiting": waiting, "answered": answered})
     return out[::-1]
+
+
+def summary(ledger: Ledger, reader: str) -> dict[str, Any]:
+    """The second-read summary as this reader may see it: ``casefile.review.stats.summarise_data`` over
+    the ledger, leaving out every reading and adjudication of a case still waiting for this reader in
+    any draw, so the figures say nothing about cases the reader has yet to read. A draw with cases
+    waiting carries ``waiting_for_you`` (their number) and its figures are not shown on the page."""
+    waiting: dict[str, int] = {}
+    held: set[str] = set()
+    for d in queue(ledger, reader):
+        if d["waiting"]:
+            waiting[d["draw_id"]] = len(d["waiting"])
+            held.update(c["case_id"] for c in d["waiting"])
+    rows = ledger.cases()
+    out = summarise_data([e.body for e in ledger.entries("draw")],
+                         [{**e.body, "seq": e.seq} for e in ledger.entries("review") if e.body["case_id"] not in held],
+                         {r["case_id"]: r["label"] for r in rows},
+                         [e.body for e in ledger.entries("adjudication") if e.body["case_id"] not in held],
+                         {r["case_id"]: r["confidence"] for r in rows})
+    for d in out["draws"]:
+        if d["draw_id"] in waiting:
+            d["waiting_for_you"] = waiting[d["draw_id"]]
+    out["left_out"] = len(held)
+    return out
 
 
 def place(ledger: Ledger, draw_id: str, case_id: str) -> Place:
@@ -174,4 +200,5 @@ def opacity_step(text: str | None) -> int:
 
 
 __all__ = ["CASE_ID", "DRAW_ID", "DEFAULT_OPACITY", "NotInQueue", "OPACITY_STEPS", "Place", "VIEWS", "case_view",
-           "display_png", "layer_png", "my_reading", "opacity_step", "overlay_png", "place", "queue", "scale_png"]
+           "display_png", "layer_png", "my_reading", "opacity_step", "overlay_png", "place", "queue", "scale_png",
+           "summary"]

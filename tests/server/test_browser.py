@@ -16,6 +16,7 @@ import pytest
 from playwright.sync_api import sync_playwright
 from statsmodels.stats.proportion import proportion_confint
 
+from casefile.review import record_review
 from tests.server.conftest import PASSWORDS
 
 CHROMIUM = "/usr/bin/chromium"
@@ -37,6 +38,7 @@ def sign_in(page, base):
     page.fill("#reader", "ana")
     page.fill("#password", PASSWORDS["ana"])
     page.click("#sign-in")
+    page.wait_for_load_state("load")
     assert page.url.endswith("/queue")
     assert page.inner_text("#who") == "ana"
 
@@ -51,9 +53,12 @@ def test_a_reader_reads_a_case_in_the_browser(server, built, browser):
 
     target = built["members"][1]
     page.click(f"a[href$='/cases/{target}']")
+    page.wait_for_load_state("load")
     assert page.url.endswith(f"/draws/{built['draw_id']}/cases/{target}")
+    page.wait_for_load_state("load")  # the pictures, and the script that runs the control
     page.wait_for_function("document.getElementById('layer').complete && "
-                           "document.getElementById('layer').naturalWidth > 0")
+                           "document.getElementById('layer').naturalWidth > 0 && "
+                           "document.getElementById('apply-opacity').hidden")
     assert page.evaluate("document.getElementById('display').naturalWidth") == 32
     assert page.is_hidden("#apply-opacity")  # with JavaScript the layer follows the control at once
     assert page.evaluate("getComputedStyle(document.getElementById('layer')).opacity") == "0.6"
@@ -64,6 +69,7 @@ def test_a_reader_reads_a_case_in_the_browser(server, built, browser):
     page.screenshot(path=str(SHOTS / "case.png"), full_page=True)
 
     page.click("#view-side")
+    page.wait_for_load_state("load")
     assert page.locator(".side img.overlay").count() == 2  # Grad-CAM and occlusion beside the image
     page.screenshot(path=str(SHOTS / "case-side-by-side.png"), full_page=True)
 
@@ -74,6 +80,7 @@ def test_a_reader_reads_a_case_in_the_browser(server, built, browser):
     page.select_option("#label", mine)
     page.fill("#note", "edge of the field looks like shrinkage")
     page.click("#record")
+    page.wait_for_load_state("load")
     assert "You said disagree" in page.inner_text("#my-verdict")
     new = list(ledger.entries(start=seq_before + 1))
     assert [e.kind for e in new] == ["review"]
@@ -84,9 +91,19 @@ def test_a_reader_reads_a_case_in_the_browser(server, built, browser):
     page.screenshot(path=str(SHOTS / "case-answered.png"), full_page=True)
 
     page.click("text=Summary")
+    page.wait_for_load_state("load")
+    assert "2 cases still wait for you" in page.inner_text("#held-back")
+    assert page.locator("g.rate").count() == 0  # the draw's figure waits for ana's other two reads
+    page.screenshot(path=str(SHOTS / "summary-while-cases-wait.png"), full_page=True)
+    for case_id in (built["members"][0], built["members"][2]):
+        record_review(ledger, case_id, reader="ana", verdict="agree", draw_id=built["draw_id"])
+    page.reload()
+    assert page.locator("#held-back").count() == 0
     mark = page.locator("g.rate")
-    # two reviewed members, both with a disagreement: ben's (from the fixture) and ana's just now
-    low, high = proportion_confint(2, 2, alpha=0.05, method="wilson")
+    # three reviewed members, two with a disagreement: ben's on the first (from the fixture), ana's on the
+    # second (just now in the browser); the third was agreed
+    low, high = proportion_confint(2, 3, alpha=0.05, method="wilson")
+    assert float(mark.get_attribute("data-rate")) == pytest.approx(2 / 3, abs=1e-6)
     assert float(mark.get_attribute("data-low")) == pytest.approx(low, abs=1e-6)
     assert float(mark.get_attribute("data-high")) == pytest.approx(high, abs=1e-6)
     page.screenshot(path=str(SHOTS / "summary.png"), full_page=True)
@@ -100,13 +117,16 @@ def test_the_core_flow_works_with_javascript_off(server, built, browser):
     sign_in(page, base)
     target = built["members"][2]
     page.click(f"a[href$='/cases/{target}']")
+    page.wait_for_load_state("load")
     assert page.is_visible("#apply-opacity")
     page.fill("#opacity", "30")
     page.click("#apply-opacity")  # without JavaScript the page reloads at the chosen strength
+    page.wait_for_load_state("load")
     assert "opacity=30" in page.url
     assert "op-30" in page.get_attribute("#layer", "class")
     page.check("input[name=verdict][value=unsure]")
     page.click("#record")
+    page.wait_for_load_state("load")
     assert "You said unsure" in page.inner_text("#my-verdict")
     (review,) = [e.body for e in ledger.entries("review") if e.body["reader"] == "ana"]
     assert (review["case_id"], review["verdict"]) == (target, "unsure")

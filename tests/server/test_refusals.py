@@ -232,3 +232,18 @@ def test_a_host_header_that_is_not_loopback_is_refused(server, host):
     assert state(ledger) == before
     for ok in ("127.0.0.1:8765", "localhost", "[::1]:8765"):
         assert Client(base).send("GET", "/sign-in", headers={"Host": ok}).status == 200
+
+
+def test_the_summary_leaves_out_cases_still_waiting_for_the_reader(server, built):
+    base, ledger, _ = server
+    c = signed_in(base)  # ana has read nothing; ben's disagreement on the first member is in the ledger
+    page = c.get("/summary")
+    assert page.status == 200
+    assert "3 cases still wait for you" in page.text
+    assert 'class="rate"' not in page.text and 'class="bin"' not in page.text
+    assert "No readings with a reader label yet" in page.text  # ben's "crack" is not counted for ana
+    assert "0 of 0 reviewed cases" in page.text
+    ben = Client(base)
+    assert ben.sign_in("ben", PASSWORDS["ben"]).status == 303
+    his = ben.get("/summary")  # ben read the first member: his own reading counts for him
+    assert "2 cases still wait for you" in his.text and "1 of 1 reviewed cases" in his.text
