@@ -61,7 +61,7 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
                clock: Callable[[], float] = time.time, sign_in_limit: int | None = None) -> Flask:
     """The review page over ``ledger``. ``clock`` (seconds) drives session expiry and the sign-in limit."""
     app = Flask(__name__)
-    app.config.update(MAX_CONTENT_LENGTH=64 * 1024, SECRET_KEY=secrets.token_bytes(32))
+    app.config.update(MAX_CONTENT_LENGTH=64 * 1024)
     sessions = Sessions(session_minutes, clock)
     guard = SignInGuard(ledger, clock=clock, **({"limit": sign_in_limit} if sign_in_limit else {}))
     app.extensions["casefile"] = {"ledger": ledger, "sessions": sessions, "guard": guard}
@@ -84,7 +84,7 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
         if request.endpoint in ("sign_in", "static") or request.endpoint is None:
             return None
         if s is None:
-            if request.method == "GET" and state == "none":
+            if request.method == "GET":  # the sign-in page says so when the session expired
                 return redirect(url_for("sign_in"), 303)
             line = ("your session has expired; sign in again" if state == "expired"
                     else "you are not signed in; sign in first")

@@ -107,7 +107,9 @@ def test_an_expired_session_is_refused(server, built, clock):
     clock.now += 30 * 60 + 1
     done = c.post(case_path(built) + "/verdict", verdict_form(csrf))
     assert done.status == 401 and "session has expired" in done.text
-    assert c.get("/queue").status == 401
+    page = c.get("/queue")
+    assert page.status == 303 and page.headers["location"].endswith("/sign-in")
+    assert "your session has expired; sign in again" in c.get("/sign-in").text
     assert state(ledger) == before
 
 
