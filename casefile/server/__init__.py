@@ -40,7 +40,7 @@ def serve(ledger: Ledger, host: str = DEFAULT_HOST, port: int = DEFAULT_PORT, *,
 
     check_host(host)
     app = create_app(ledger, session_minutes=session_minutes)
-    server = make_server(host, port, app, threaded=False)
+    server = make_server(host, port, app, threaded=True)  # a browser may hold a spare connection open
     if ready is not None:
         ready(f"http://{host if ':' not in host else f'[{host}]'}:{server.server_port}/")
     try:

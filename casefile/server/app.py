@@ -13,11 +13,12 @@ from __future__ import annotations
 
 import ipaddress
 import secrets
+import threading
 import time
 from collections.abc import Callable
 from typing import Any
 
-from flask import Flask, Response, g, redirect, render_template, request, url_for
+from flask import Flask, Response, abort, g, redirect, render_template, request, url_for
 from werkzeug.exceptions import HTTPException
 
 from casefile.cautions import AGREEMENT_CAUTION, CAUTION_TITLE, PAGE_CAUTIONS
@@ -64,7 +65,9 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
     app.config.update(MAX_CONTENT_LENGTH=64 * 1024)
     sessions = Sessions(session_minutes, clock)
     guard = SignInGuard(ledger, clock=clock, **({"limit": sign_in_limit} if sign_in_limit else {}))
-    app.extensions["casefile"] = {"ledger": ledger, "sessions": sessions, "guard": guard}
+    # one writer at a time in this process: a sign-in's count and its record, a verdict's check and its entry
+    writing = threading.Lock()
+    app.extensions["casefile"] = {"ledger": ledger, "sessions": sessions, "guard": guard, "lock": writing}
 
     def refuse(status: int, line: str) -> Response:
         resp = Response(render_template("refused.html", line=line, status=status, reader=_reader()), status)
@@ -102,6 +105,7 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
     @app.errorhandler(HTTPException)
     def _http_error(exc: HTTPException) -> Response:
         words = {404: "not found: that page, draw or case is not in your queue",
+                 409: "you have already read this case for this draw; your reading is kept as it was",
                  405: "that action is not allowed here", 413: "the form was too large"}
         return refuse(exc.code or 500, words.get(exc.code or 500, exc.name))
 
@@ -130,8 +134,9 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
             return resp
         if not sessions.form_token_ok(form_cookie, request.form.get("csrf")):
             return refuse(403, "the sign-in form's security token is missing or wrong; reload the sign-in page")
-        result = guard.attempt(request.form.get("reader", ""), request.form.get("password", ""),
-                               request.remote_addr or "unknown")
+        with writing:
+            result = guard.attempt(request.form.get("reader", ""), request.form.get("password", ""),
+                                   request.remote_addr or "unknown")
         if not result.ok or result.reader is None:
             return Response(render_template("sign_in.html", form_csrf=sessions.form_token(form_cookie),
                                             message=result.message, reader_id=request.form.get("reader", "")[:64]),
@@ -180,28 +185,31 @@ def create_app(ledger: Ledger, *, session_minutes: float = DEFAULT_MINUTES,
     def case_page(draw_id: str, case_id: str) -> Response:
         return _case_page(draw_id, case_id)
 
+    def _record(where: views.Place, reader: str, draw_id: str, case_id: str, form: dict[str, str]) -> str | None:
+        """Record the verdict, or say in one line why not (nothing written then)."""
+        if views.my_reading(ledger, reader, draw_id, case_id) is not None:
+            abort(409)
+        if form["verdict"] not in VERDICTS:
+            return "choose agree, disagree or unsure"
+        if len(form["note"]) > MAX_NOTE:
+            return f"the note is longer than {MAX_NOTE} characters"
+        label = form["label"].strip() or None
+        if label is not None and label not in where.case.body["model"]["labels"]:
+            return f"label {label!r} is not one of the model's labels"
+        try:
+            record_review(ledger, case_id, reader=reader, verdict=form["verdict"], label=label,
+                          note=form["note"].strip() or None, draw_id=draw_id)
+        except ValidationError as exc:
+            return str(exc).split(": ", 1)[-1]
+        return None
+
     @app.post("/draws/<draw_id>/cases/<case_id>/verdict")
     def verdict(draw_id: str, case_id: str) -> Response:
         where = views.place(ledger, draw_id, case_id)
         reader = g.session.reader
         form = {k: request.form.get(k, "") for k in ("verdict", "label", "note")}
-        if views.my_reading(ledger, reader, draw_id, case_id) is not None:
-            return refuse(409, f"you have already read case {case_id} for draw {draw_id}")
-        problem = None
-        if form["verdict"] not in VERDICTS:
-            problem = "choose agree, disagree or unsure"
-        elif len(form["note"]) > MAX_NOTE:
-            problem = f"the note is longer than {MAX_NOTE} characters"
-        if problem is None:
-            label = form["label"].strip() or None
-            if label is not None and label not in where.case.body["model"]["labels"]:
-                problem = f"label {label!r} is not one of the model's labels"
-            else:
-                try:
-                    record_review(ledger, case_id, reader=reader, verdict=form["verdict"], label=label,
-                                  note=form["note"].strip() or None, draw_id=draw_id)
-                except ValidationError as exc:
-                    problem = str(exc).split(": ", 1)[-1]
+        with writing:
+            problem = _record(where, reader, draw_id, case_id, form)
         if problem is not None:
             return _case_page(draw_id, case_id, problem=problem, form=form, status=400)
         return redirect(url_for("case_page", draw_id=draw_id, case_id=case_id, _anchor="answered"), 303)

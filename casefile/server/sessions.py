@@ -6,6 +6,7 @@ from __future__ import annotations
 import hashlib
 import hmac
 import secrets
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -34,16 +35,19 @@ class Sessions:
         self.clock = clock
         self._secret = secrets.token_bytes(32)
         self._by_token: dict[str, Session] = {}
+        self._lock = threading.Lock()  # the server answers requests on several threads
 
     def start(self, reader: str) -> Session:
-        self._prune()
         s = Session(secrets.token_urlsafe(32), reader, secrets.token_urlsafe(32), self.clock() + self.seconds)
-        self._by_token[s.token] = s
+        with self._lock:
+            self._prune()
+            self._by_token[s.token] = s
         return s
 
     def find(self, token: str | None) -> tuple[State, Session | None]:
         """("ok", session) for a live token; ("expired", None) for one past its time; else ("none", None)."""
-        s = self._by_token.get(token or "")
+        with self._lock:
+            s = self._by_token.get(token or "")
         if s is None:
             return "none", None
         if self.clock() >= s.expires:
@@ -51,7 +55,8 @@ class Sessions:
         return "ok", s
 
     def end(self, token: str) -> None:
-        self._by_token.pop(token, None)
+        with self._lock:
+            self._by_token.pop(token, None)
 
     def _prune(self) -> None:
         now = self.clock()

@@ -105,7 +105,7 @@ def server(ledger, clock):
     from casefile.server import create_app
 
     app = create_app(ledger, session_minutes=30, clock=clock)
-    srv = make_server("127.0.0.1", 0, app, threaded=False)
+    srv = make_server("127.0.0.1", 0, app, threaded=True)  # as casefile serve runs it
     t = threading.Thread(target=srv.serve_forever, daemon=True)
     t.start()
     try:

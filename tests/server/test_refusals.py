@@ -11,6 +11,8 @@ the dot segments the path tests send raw.
 
 from __future__ import annotations
 
+import threading
+
 import pytest
 
 from casefile.errors import UsageError
@@ -249,3 +251,39 @@ def test_the_summary_leaves_out_cases_still_waiting_for_the_reader(server, built
     assert ben.sign_in("ben", PASSWORDS["ben"]).status == 303
     his = ben.get("/summary")  # ben read the first member: his own reading counts for him
     assert "2 cases still wait for you" in his.text and "1 of 1 reviewed cases" in his.text
+
+
+def test_the_same_verdict_sent_twice_at_once_is_recorded_once(server, built):
+    """Two tabs sending one reader's verdict together: one entry, the other refused (RFC 9110 15.5.10)."""
+    base, ledger, _ = server
+    c = signed_in(base)
+    csrf = c.get(case_path(built)).csrf()
+    results = []
+
+    def send():
+        results.append(c.post(case_path(built) + "/verdict", verdict_form(csrf, "unsure")).status)
+
+    threads = [threading.Thread(target=send) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=60)
+    assert sorted(results) == [303, 409, 409, 409]
+    assert [e.body["reader"] for e in ledger.entries("review")] == ["ben", "ana"]
+
+
+def test_wrong_passwords_sent_at_once_still_stop_at_the_limit(server):
+    base, ledger, _ = server
+    seq, _ = state(ledger)
+    statuses = []
+
+    def guess(i):
+        statuses.append(Client(base).sign_in("ana", f"wrong guess number {i}").status)
+
+    threads = [threading.Thread(target=guess, args=(i,)) for i in range(8)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=120)
+    assert statuses == [401] * 8
+    assert [e.body["failures_in_window"] for e in ledger.entries(start=seq + 1)] == [1, 2, 3, 4, 5]
