@@ -114,11 +114,14 @@ def my_reading(ledger: Ledger, reader: str, draw_id: str, case_id: str) -> dict[
 
 def case_view(ledger: Ledger, where: Place, reader: str) -> dict[str, Any]:
     """Everything the case page shows. ``others`` (other readers' current readings of this case, for any
-    draw) is empty until this reader has answered for this draw."""
+    draw) is empty until this reader has answered for this draw; ``next_waiting`` is the next member of
+    the draw still waiting for this reader, or None."""
     body = where.case.body
     draw_id = where.draw.body["draw_id"]
     readings = _readings(ledger)
     mine = readings.get((body["case_id"], reader, draw_id))
+    following = next((m["case_id"] for m in where.draw.body["members"] if m["case_id"] != body["case_id"]
+                      and (m["case_id"], reader, draw_id) not in readings), None)
     others: list[dict[str, Any]] = []
     if mine is not None:
         others = sorted((dict(r) for (c, who, _), r in readings.items() if c == body["case_id"] and who != reader),
@@ -137,6 +140,7 @@ def case_view(ledger: Ledger, where: Place, reader: str) -> dict[str, Any]:
         "confidence": result.get("confidence"), "top": list(result.get("top") or []),
         "status": body["status"], "flags": list(body.get("flags") or []),
         "checks": list(body.get("checks") or []), "maps": maps, "mine": mine, "others": others,
+        "next_waiting": following,
     }
 
 

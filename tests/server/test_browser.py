@@ -88,6 +88,7 @@ def test_a_reader_reads_a_case_in_the_browser(server, built, browser):
     assert (body["reader"], body["case_id"], body["verdict"], body["label"], body["draw_id"]) == \
         ("ana", target, "disagree", mine, built["draw_id"])
     assert body["note"] == "edge of the field looks like shrinkage"
+    assert page.get_attribute("#next", "href").endswith(f"/cases/{built['members'][0]}")  # ana's next
     page.screenshot(path=str(SHOTS / "case-answered.png"), full_page=True)
 
     page.click("text=Summary")
