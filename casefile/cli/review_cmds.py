@@ -53,9 +53,14 @@ def _sample_usage(args: argparse.Namespace) -> str | None:
 
 
 def cmd_review(args: argparse.Namespace) -> int:
+    from casefile.cli.server_cmds import read_password
     from casefile.review import record_review
+    from casefile.review.accounts import confirm_reader, needs_password
 
-    entry = record_review(open_ledger(args), args.case_id, reader=args.reader, verdict=args.verdict,
+    ledger = open_ledger(args)
+    if needs_password(ledger, args.reader):  # a reader with an account: nobody else writes in their name
+        confirm_reader(ledger, args.reader, read_password(args.reader), f"review of {args.case_id}")
+    entry = record_review(ledger, args.case_id, reader=args.reader, verdict=args.verdict,
                           label=args.label, note=args.note, amends=args.amends, draw_id=args.draw,
                           new_label=args.new_label)
     draw_id = entry.body.get("draw_id")
@@ -116,7 +121,9 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "review", cmd_review, "record a reader's verdict on a case, for one draw",
                  epilog="A reader reads a case once per draw; to correct a reading, pass --amends SEQ "
-                        "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`).")
+                        "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`). "
+                        "A reader with an account (`casefile reader add`) gives their password: typed at the "
+                        "terminal, or as the first line of standard input.")
     sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
     sp.add_argument("--reader", required=True, metavar="ID", help="who read the case (a reader id of your site)")
     sp.add_argument("--verdict", required=True, choices=VERDICTS)
