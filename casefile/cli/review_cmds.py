@@ -17,7 +17,7 @@ from casefile.cli.common import (
     share,
 )
 from casefile.review.lot import LEVELS
-from casefile.review.plans import ALLOCATIONS, DEFAULT_MINIMUM, PLANS, STRATA
+from casefile.review.plans import ALLOCATIONS, DEFAULT_MINIMUM, PLANS, STRATA, plan_problem
 from casefile.review.readings import VERDICTS
 
 PLAN_HELP = ("random: simple random sample (needs --size); stratified: by label, status or flag (needs --size); "
@@ -37,19 +37,7 @@ def cmd_sample(args: argparse.Namespace) -> int:
 
 
 def _sample_usage(args: argparse.Namespace) -> str | None:
-    if args.plan in ("random", "stratified") and args.size is None:
-        return f"--plan {args.plan} needs --size N"
-    if args.plan == "lot" and args.aql is None:
-        return "--plan lot needs --aql A (the acceptable quality limit in %)"
-    if args.plan == "risk" and args.size is None and args.share is None:
-        return "--plan risk needs --size N or --share P (the share of unflagged cases to draw)"
-    if args.plan != "lot" and args.aql is not None:
-        return f"--aql goes with --plan lot, not --plan {args.plan}"
-    if args.plan == "lot" and args.size is not None:
-        return "--plan lot takes its sample size from ISO 2859-1 (--aql, --level); leave out --size"
-    if args.plan != "risk" and args.minimum != DEFAULT_MINIMUM:
-        return f"--minimum goes with --plan risk, not --plan {args.plan}"
-    return None
+    return plan_problem(args.plan, size=args.size, aql=args.aql, share=args.share, minimum=args.minimum)
 
 
 def cmd_review(args: argparse.Namespace) -> int:

@@ -52,6 +52,27 @@ DEFAULT_MINIMUM = 5
 DEFAULT_SHARE = 0.1
 
 
+def plan_problem(plan: str, *, size: int | None = None, aql: float | None = None, share: float | None = None,
+                 minimum: int = DEFAULT_MINIMUM) -> str | None:
+    """Why these options do not make a draw of ``plan`` (named as the command line names them), or None.
+    An option that goes with another plan is refused rather than ignored."""
+    if plan in ("random", "stratified") and size is None:
+        return f"--plan {plan} needs --size N"
+    if plan == "lot" and aql is None:
+        return "--plan lot needs --aql A (the acceptable quality limit in %)"
+    if plan == "risk" and size is None and share is None:
+        return "--plan risk needs --size N or --share P (the share of unflagged cases to draw)"
+    if plan != "lot" and aql is not None:
+        return f"--aql goes with --plan lot, not --plan {plan}"
+    if plan == "lot" and size is not None:
+        return "--plan lot takes its sample size from ISO 2859-1 (--aql, --level); leave out --size"
+    if plan != "risk" and minimum != DEFAULT_MINIMUM:
+        return f"--minimum goes with --plan risk, not --plan {plan}"
+    if plan != "risk" and share is not None:
+        return f"--share goes with --plan risk, not --plan {plan}"
+    return None
+
+
 def _keys(population: list[Mapping[str, Any]], seed: int) -> list[float]:
     rng = random.Random(seed)
     return [rng.random() for _ in population]

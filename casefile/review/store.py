@@ -10,9 +10,9 @@ from collections.abc import Mapping
 from typing import Any
 
 from casefile.canonical import canonical_bytes
-from casefile.errors import ValidationError
+from casefile.errors import UsageError, ValidationError
 from casefile.ledger import Entry, Ledger, utc_now
-from casefile.review.plans import DEFAULT_MINIMUM, PLANS, draw_plan
+from casefile.review.plans import DEFAULT_MINIMUM, PLANS, draw_plan, plan_problem
 
 FILTER_KEYS = ("model", "label", "status", "since", "until")
 
@@ -82,6 +82,9 @@ def draw(ledger: Ledger, plan: str, *, size: int | None = None, aql: float | Non
     """
     if plan not in PLANS:
         raise ValidationError(f"sampling plan {plan!r} is not one of {', '.join(PLANS)}")
+    problem = plan_problem(plan, size=size, aql=aql, share=share, minimum=minimum)
+    if problem:
+        raise UsageError(problem)
     clean = _clean_filters(filters)
     pop = population(ledger, clean)
     kwargs: dict[str, Any] = {"size": size}

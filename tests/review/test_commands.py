@@ -46,3 +46,20 @@ def test_review_adjudicate_and_stats_from_the_command_line(ledger, capsys):
     assert s["draws"][0]["reviewed"] == 1 and s["draws"][0]["n_of"] == "cases"
     code, out, _ = _cli(ledger, capsys, "history", "rv-00002")
     assert "adjudicated" in out and "by lead: crack" in out and f"for draw {draw_id}" in out
+
+
+@pytest.mark.parametrize(("kwargs", "words"), [
+    ({"plan": "random", "size": 3, "aql": 1.0}, "--aql goes with --plan lot, not --plan random"),
+    ({"plan": "random"}, "--plan random needs --size N"),
+    ({"plan": "lot", "aql": 1.0, "size": 5}, "leave out --size"),
+    ({"plan": "stratified", "size": 4, "share": 0.2}, "--share goes with --plan risk"),
+])
+def test_the_python_api_refuses_options_of_another_plan_as_the_command_does(ledger, kwargs, words):
+    from casefile.errors import UsageError
+    from casefile.review import draw
+
+    head = ledger.head()
+    with pytest.raises(UsageError) as info:
+        draw(ledger, kwargs.pop("plan"), **kwargs)
+    assert words in str(info.value)
+    assert ledger.head() == head
