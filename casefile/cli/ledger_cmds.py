@@ -1,4 +1,4 @@
-"""Commands on the ledger itself: init, verify, seal, keygen, rebuild."""
+"""Commands on the ledger itself: init, verify, seal, keygen, rebuild, copy."""
 
 from __future__ import annotations
 
@@ -70,6 +70,19 @@ def cmd_rebuild(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_copy(args: argparse.Namespace) -> int:
+    from casefile.ledger import copy_ledger
+
+    done = copy_ledger(args.source, args.destination)
+    if args.json:
+        jsonl({"from": done.source, "to": done.destination, "entries": done.entries, "blobs": done.blobs,
+               "head_seq": done.head_seq, "head_hash": done.head_hash})
+    else:
+        print(f"copied {done.entries} entries and {done.blobs} blobs from {done.source} to {done.destination}; "
+              f"both verify, with the same head (seq {done.head_seq}, hash {done.head_hash})")
+    return 0
+
+
 def register(sub: argparse._SubParsersAction) -> None:
     command(sub, "init", cmd_init, "create an empty ledger (safe to repeat)")
 
@@ -98,3 +111,9 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "rebuild", cmd_rebuild, "recompute the query tables from the entries and record that it ran")
     sp.add_argument("--reason", required=True, metavar="TEXT", help="why the query tables are rebuilt (recorded)")
+
+    sp = command(sub, "copy", cmd_copy, "copy a whole ledger into a new or empty one (SQLite or PostgreSQL); both "
+                 "sides are verified and must end with the same head hash")
+    sp.add_argument("--from", dest="source", required=True, metavar="URL", help="the ledger to copy (as --store)")
+    sp.add_argument("--to", dest="destination", required=True, metavar="URL",
+                    help="where to copy it: a new or empty SQLite file or PostgreSQL database")

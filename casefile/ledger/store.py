@@ -179,6 +179,22 @@ class Store:
         whose bodies are computed from the ledger under the same lock)."""
         return self._write(conn, [self._prepare(kind, body, blobs)])[0]
 
+    def write_copied(self, conn: Connection, entry: Entry, blobs: dict[str, bytes]) -> None:
+        """Write an entry read from another ledger, byte for byte, inside a write transaction (casefile
+        copy): its hash must follow from its prev_hash, kind and body, and ``blobs`` (digest → bytes)
+        holds the blobs it refers to that this ledger lacks. Its query rows are derived here."""
+        if entry_hash(entry.prev_hash, entry.kind, entry.raw) != entry.hash:
+            raise LedgerError(f"{self.path}: copy refused at seq {entry.seq}: its hash does not follow from its "
+                              "kind and body")
+        self._store_blobs(conn, list(blobs.values()), list(blobs))
+        self._insert_row(conn, "entries", {"seq": entry.seq, "kind": entry.kind, "body": entry.raw.decode("utf-8"),
+                                           "prev_hash": entry.prev_hash, "hash": entry.hash})
+        self._insert_derived(conn, derive(entry.seq, entry.kind, entry.body,
+                                          referenced_blobs(entry.raw.decode("utf-8"))))
+
+    def has_blob(self, conn: Connection, digest: str) -> bool:
+        return conn.execute(select(t.blobs.c.digest).where(t.blobs.c.digest == digest)).first() is not None
+
     @staticmethod
     def _prepare(kind: str, body: dict[str, Any], blob_iter: Iterable[bytes] | None) -> tuple:
         schemas.validate(kind, body)
