@@ -9,11 +9,19 @@ from casefile.cli.common import command, err, jsonl, open_ledger
 
 def cmd_init(args: argparse.Namespace) -> int:
     led = open_ledger(args, create=True)
+    upgraded = led.upgrade()  # a ledger made by an older release: brought up to date, only adding
     seq, h = led.head()
     if args.json:
-        jsonl({"store": led.path, "head_seq": seq, "head_hash": h})
+        line = {"store": led.path, "head_seq": seq, "head_hash": h, "schema_version": led.schema_version}
+        if upgraded is not None:
+            line["upgrade"] = {"seq": upgraded.seq, **upgraded.body}
+        jsonl(line)
     else:
-        print(f"ledger ready at {led.path} ({seq} entries)")
+        if upgraded is not None:
+            b = upgraded.body
+            print(f"ledger upgraded from schema version {b['from_version']} to {b['to_version']} (added: "
+                  f"{', '.join(b['added']) or 'nothing'}); recorded as seq {upgraded.seq}")
+        print(f"ledger ready at {led.path} ({seq} entries, schema version {led.schema_version})")
     return 0
 
 
@@ -84,7 +92,8 @@ def cmd_copy(args: argparse.Namespace) -> int:
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    command(sub, "init", cmd_init, "create an empty ledger (safe to repeat)")
+    command(sub, "init", cmd_init, "create an empty ledger (safe to repeat); upgrade one made by an older "
+            "release, only adding, or say why it cannot be")
 
     sp = command(sub, "verify", cmd_verify, "check every hash, link, blob and query row; exit 1 naming the "
                  "first bad seq", check=_verify_usage)

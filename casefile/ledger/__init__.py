@@ -1,7 +1,7 @@
 """The append-only, hash-chained ledger: entries, blobs, derived query tables, seals and verify.
 
 Imports run one way: tables, derive, merkle, keys, location, postgres → engines → store → sealfile, trust →
-seal, report → seal_checks → verify → copy, facade (the ``Ledger`` class) → this package.
+seal, report, upgrade → seal_checks → verify → copy, facade (the ``Ledger`` class) → this package.
 """
 
 from casefile.ledger.copy import CopyReport, copy_ledger

@@ -7,9 +7,10 @@ is spelt (SQLite's ``?`` or psycopg's ``%s``).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
-from sqlalchemy import create_engine, event, inspect
+from sqlalchemy import create_engine, event, func, inspect, select
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.exc import DBAPIError
 
@@ -59,7 +60,13 @@ class SqliteEngine:
     def lock(self, conn: Connection) -> None:
         """Nothing to do: BEGIN IMMEDIATE already holds the one write lock."""
 
-    def create(self, conn: Connection) -> None:
+    def create(self, conn: Connection) -> int:
+        """Make a new ledger, or put back dropped guards of one at this release's version; return the
+        ledger's schema version (an older ledger is left as it is: `casefile init` upgrades it)."""
+        return _open_schema(conn, self.install)
+
+    @staticmethod
+    def install(conn: Connection) -> None:
         t.metadata.create_all(conn)
         for ddl in t.SQLITE_TRIGGERS:
             conn.exec_driver_sql(ddl)
@@ -122,10 +129,14 @@ class PostgresEngine:
         """Take the chain-head lock for the rest of this transaction (released at commit or rollback)."""
         conn.exec_driver_sql(pg.LOCK_SQL)
 
-    def create(self, conn: Connection) -> None:
-        """Make what is missing. A ledger that is complete needs no DDL, so a writer role (INSERT and
+    def create(self, conn: Connection) -> int:
+        """As SqliteEngine.create. A ledger that is complete needs no DDL, so a writer role (INSERT and
         SELECT only) can open it; the lock keeps several first openers from racing."""
         self.lock(conn)
+        return _open_schema(conn, self.install)
+
+    @staticmethod
+    def install(conn: Connection) -> None:
         have_tables = set(inspect(conn).get_table_names())
         have = {(r[0], r[1]) for r in conn.exec_driver_sql(
             "SELECT c.relname, tg.tgname FROM pg_trigger tg JOIN pg_class c ON c.oid = tg.tgrelid "
@@ -153,6 +164,24 @@ class PostgresEngine:
 
 
 Flavour = SqliteEngine | PostgresEngine
+
+
+def recorded_version(conn: Connection) -> int:
+    """The schema version a ledger records; 1 for a ledger made before versions were recorded."""
+    if not inspect(conn).has_table("schema_versions"):
+        return 1
+    return int(conn.execute(select(func.max(t.schema_versions.c.version))).scalar() or 1)
+
+
+def _open_schema(conn: Connection, install: Callable[[Connection], None]) -> int:
+    if not inspect(conn).has_table("entries"):  # a new ledger, made at this release's version
+        install(conn)
+        conn.execute(t.schema_versions.insert().values(version=t.SCHEMA_VERSION, seq=0))
+        return t.SCHEMA_VERSION
+    version = recorded_version(conn)
+    if version == t.SCHEMA_VERSION:
+        install(conn)  # puts back a dropped guard (or query table) of this version
+    return version
 
 
 def flavour(loc: Location, synchronous: str) -> Flavour:

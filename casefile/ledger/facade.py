@@ -16,13 +16,19 @@ from casefile.ledger.seal import seal
 from casefile.ledger.sealfile import SealFile, read_seal_file
 from casefile.ledger.store import Entry, Store
 from casefile.ledger.trust import TrustedKeys
+from casefile.ledger.upgrade import upgrade
 from casefile.ledger.verify import verify
 
 SealSource = str | os.PathLike[str] | SealFile
 
 
 class Ledger(Store):
-    """An append-only, hash-chained ledger in SQLite, with seals and verify."""
+    """An append-only, hash-chained ledger in SQLite or PostgreSQL, with seals, verify and upgrade."""
+
+    def upgrade(self) -> Entry | None:
+        """Bring a ledger made by an older release to this release's schema version, only adding, and
+        record an ``upgrade`` entry (casefile.ledger.upgrade); None when it is current already."""
+        return upgrade(self)
 
     def verify(self, seal: SealSource | None = None, public_key: KeySource | Sequence[KeySource] | None = None,
                *, site_keys: bool = True, unsigned_ok: bool = False, strict: bool = False) -> VerifyReport:

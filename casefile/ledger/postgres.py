@@ -50,7 +50,7 @@ def _refuse(name: str, when: str, table: str, message: str) -> str:
 
 def _entry_triggers() -> list[str]:
     out = []
-    for table, what in (("entries", "entries"), ("blobs", "blobs")):
+    for table, what in (("entries", "entries"), ("blobs", "blobs"), ("schema_versions", "schema versions")):
         out.append(_refuse(f"{table}_no_update", "UPDATE", table,
                            f"casefile ledger is append-only: {what} cannot be changed"))
         for verb, op in (("delete", "DELETE"), ("truncate", "TRUNCATE")):

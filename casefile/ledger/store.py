@@ -37,7 +37,8 @@ _HEAD_SQL = "SELECT seq, hash FROM entries ORDER BY seq DESC LIMIT 1"
 T = TypeVar("T")
 # Kinds whose bodies are computed from the ledger itself under the write lock; only their own paths
 # (seal.seal, Store.rebuild_derived) append them, through append_in.
-COMPUTED_KINDS = {"seal": "Ledger.seal (casefile seal)", "rebuild": "Ledger.rebuild_derived (casefile rebuild)"}
+COMPUTED_KINDS = {"seal": "Ledger.seal (casefile seal)", "rebuild": "Ledger.rebuild_derived (casefile rebuild)",
+                  "upgrade": "Ledger.upgrade (casefile init)"}
 
 
 _DUPLICATE_CASE = ("cases.run_key", "cases.case_id", "cases_run_key_key", "cases_case_id_key")
@@ -109,10 +110,14 @@ class Store:
         self._insert = {name: (self.flavour.sql(sql), cols) for name, (sql, cols) in _INSERT_SQL.items()}
         try:
             with self.engine.connect().execution_options(write=True) as conn, conn.begin():
-                self.flavour.create(conn)
+                self.schema_version = self.flavour.create(conn)
         except DatabaseError as exc:  # also "file is not a database"
             self.engine.dispose()
             raise LedgerError(f"{self.path}: cannot open ledger: {_first_line(exc)}") from None
+        if self.schema_version > t.SCHEMA_VERSION:
+            self.engine.dispose()
+            raise LedgerError(f"{self.path}: made by a newer release (schema version {self.schema_version}; this "
+                              f"release knows up to {t.SCHEMA_VERSION}); open it with that release")
 
     def sql(self, text: str) -> str:
         """Driver-level SQL written with ``?`` placeholders, spelt for this ledger's engine."""
@@ -157,9 +162,12 @@ class Store:
             return []
         return self.transaction(lambda conn: self._write(conn, prepared))
 
-    def transaction(self, work: Callable[[Connection], T]) -> T:
+    def transaction(self, work: Callable[[Connection], T], *, upgrading: bool = False) -> T:
         """Run ``work(conn)`` in one write transaction holding the chain-head lock (SQLite: BEGIN IMMEDIATE;
         PostgreSQL: an advisory transaction lock): all it appends is kept, or none."""
+        if self.schema_version < t.SCHEMA_VERSION and not upgrading:
+            raise LedgerError(f"{self.path}: this ledger is at schema version {self.schema_version} and this release "
+                              f"writes version {t.SCHEMA_VERSION}; run `casefile init` to upgrade it (it only adds)")
         try:
             with self.engine.connect().execution_options(write=True) as conn, conn.begin():
                 self.flavour.lock(conn)
@@ -254,23 +262,30 @@ class Store:
             raise ValidationError("rebuild refused: the reason is empty; say why the query tables are rebuilt")
 
         def work(conn: Connection) -> Entry:
-            self.flavour.drop_derived_guards(conn)
-            for tb in t.DERIVED_TABLES:  # re-created, so a ledger made by an older release gains new columns
-                tb.drop(conn, checkfirst=True)
-                tb.create(conn)
-            counts = {tb.name: 0 for tb in t.DERIVED_TABLES}
-            n = 0
-            for e in self.entries(conn=conn):
-                rows = derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8")))
-                self._insert_derived(conn, rows)
-                for name, _ in rows:
-                    counts[name] += 1
-                n += 1
-            self.flavour.create_derived_guards(conn)
+            n, counts = self.rederive(conn)
             body = {"rebuilt_at": utc_now(), "reason": reason.strip(), "entries": n, "rows": counts}
             return self.append_in(conn, "rebuild", body)
 
         return self.transaction(work)
+
+    def rederive(self, conn: Connection) -> tuple[int, dict[str, int]]:
+        """Inside a write transaction (rebuild, upgrade): drop the query tables' guards, re-create and refill
+        the tables from the entries (so a ledger made by an older release gains new columns), put the
+        guards back; return the entries read and the rows written per table."""
+        self.flavour.drop_derived_guards(conn)
+        for tb in t.DERIVED_TABLES:
+            tb.drop(conn, checkfirst=True)
+            tb.create(conn)
+        counts = {tb.name: 0 for tb in t.DERIVED_TABLES}
+        n = 0
+        for e in self.entries(conn=conn):
+            rows = derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8")))
+            self._insert_derived(conn, rows)
+            for name, _ in rows:
+                counts[name] += 1
+            n += 1
+        self.flavour.create_derived_guards(conn)
+        return n, counts
 
     # ------------------------------------------------------------------ reading
     def head(self) -> tuple[int, str]:
