@@ -132,6 +132,17 @@ positive_int = whole_number(1)
 non_negative_int = whole_number(0)
 
 
+def positive_float(text: str) -> float:
+    """An option type: a finite number above zero (seconds, for instance)."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"{text!r} must be a finite number above 0")
+    return value
+
+
 def share(text: str) -> float:
     try:
         value = float(text)

@@ -96,21 +96,25 @@ _IDENT = re.compile(r"^[a-z_][a-z0-9_]{0,62}$")
 def writer_role_sql(role: str = "casefile_writer", database: str = "casefile", schema: str = "public") -> str:
     """The SQL an administrator runs, as the ledger's owner, to make a login role that may append to the
     ledger and read it (INSERT and SELECT) but never change or remove a row (no UPDATE, DELETE or
-    TRUNCATE). The default privileges carry the same grants to query tables a rebuild re-creates.
+    TRUNCATE), except the work claims of ``explain --workers``, which it may also UPDATE. The default
+    privileges carry the same grants to query tables a rebuild re-creates.
 
     Names are checked (lowercase PostgreSQL identifiers) so the text can be run as it is.
     """
     for what, name in (("role", role), ("database", database), ("schema", schema)):
         if not _IDENT.match(name):
             raise ValueError(f"{what} name {name!r}: use lowercase letters, digits and _ (a plain identifier)")
-    tables = ", ".join(tb.name for tb in t.metadata.sorted_tables)
+    everything = ", ".join(tb.name for tb in t.metadata.sorted_tables)
+    tables = ", ".join(tb.name for tb in t.metadata.sorted_tables if tb.name != t.claims.name)
     return "\n".join([
         f"-- run as the owner of the ledger's tables (the role that ran `casefile init`), in database {database}",
         f"CREATE ROLE {role} LOGIN;  -- then give it a password: ALTER ROLE {role} PASSWORD '...';",
         f"GRANT CONNECT ON DATABASE {database} TO {role};",
         f"GRANT USAGE ON SCHEMA {schema} TO {role};",
-        f"REVOKE ALL ON {tables} FROM {role};",
+        f"REVOKE ALL ON {everything} FROM {role};",
         f"GRANT SELECT, INSERT ON {tables} TO {role};",
+        "-- work claims of `explain --workers` are taken and finished, so they change (they are not history)",
+        f"GRANT SELECT, INSERT, UPDATE ON {t.claims.name} TO {role};",
         f"ALTER DEFAULT PRIVILEGES IN SCHEMA {schema} GRANT SELECT, INSERT ON TABLES TO {role};",
         "",
     ])

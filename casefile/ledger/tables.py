@@ -146,6 +146,21 @@ schema_versions = Table(
     Column("seq", Integer, nullable=False),
 )
 
+# Work claims of `casefile explain --workers`: which worker is explaining which input of a shared
+# listing. Not history (rows are taken, renewed and finished, so they change); not hashed, copied or
+# verified, and the one table a writer role may UPDATE.
+claims = Table(
+    "claims",
+    metadata,
+    Column("claim_key", String(64), primary_key=True),
+    Column("position", Integer, nullable=False),
+    Column("input", Text, nullable=False),
+    Column("worker", String(128)),
+    Column("claimed_at", Float),
+    Column("done", Integer, nullable=False),
+    Index("ix_claims_open", "done", "position"),
+)
+
 DERIVED_TABLES = (entry_blobs, cases, case_checks, failures, amendments, reviews, adjudications, draws, seals)
 
 # Append-only, enforced by SQLite itself: an UPDATE or DELETE on entries or blobs aborts, and an

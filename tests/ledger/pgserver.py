@@ -63,8 +63,9 @@ class Cluster:
 
 
 @contextmanager
-def cluster() -> Iterator[Cluster]:
-    """Create, start, yield, then stop and remove a cluster (raises RuntimeError when it will not start)."""
+def cluster(*, durable: bool = False) -> Iterator[Cluster]:
+    """Create, start, yield, then stop and remove a cluster (raises RuntimeError when it will not start).
+    ``durable``: keep PostgreSQL's own fsync on every commit (benchmarks); off by default (tests)."""
     bindir = find_bin()
     if bindir is None:
         raise FileNotFoundError("initdb")
@@ -83,7 +84,9 @@ def cluster() -> Iterator[Cluster]:
         # loopback only; the unix socket in our own folder. fsync off: a throwaway cluster needs no
         # durability across a power cut (a killed client still loses only its open transaction).
         opts = (f"-c listen_addresses=127.0.0.1 -c port={port} -c unix_socket_directories={folder} "
-                "-c fsync=off -c synchronous_commit=off -c full_page_writes=off -c max_connections=60")
+                "-c max_connections=60")
+        if not durable:
+            opts += " -c fsync=off -c synchronous_commit=off -c full_page_writes=off"
         done = c.run(str(bindir / "pg_ctl"), "-D", str(data), "-l", str(folder / "server.log"), "-w",
                      "-t", "60", "-o", opts, "start")
         if done.returncode != 0:
