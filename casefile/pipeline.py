@@ -93,6 +93,16 @@ class BatchSummary:
     outcomes: list[Outcome] = field(default_factory=list)
     interrupted: bool = False
 
+    def add(self, out: Outcome) -> None:
+        """Count one input's outcome."""
+        self.outcomes.append(out)
+        if out.outcome == "recorded":
+            self.recorded += 1
+        elif out.outcome == "skipped":
+            self.skipped += 1
+        else:
+            self.failed.append((out.input, out.reason or "unknown"))
+
     def text(self, *, list_failures: bool = True) -> str:
         """The counts; with ``list_failures``, one line per failed input (leave them out when they were
         already printed as they happened)."""
@@ -288,13 +298,7 @@ def explain_batch(ledger: Ledger, inputs: Sequence[str | os.PathLike[str]], load
     try:
         for path in bar:
             out = explain_one(ledger, path, loaded, run, key=key, sheet_dir=sheet_dir, settings=settings)
-            summary.outcomes.append(out)
-            if out.outcome == "recorded":
-                summary.recorded += 1
-            elif out.outcome == "skipped":
-                summary.skipped += 1
-            else:
-                summary.failed.append((str(path), out.reason or "unknown"))
+            summary.add(out)
             if on_outcome:
                 on_outcome(out)
     except KeyboardInterrupt:

@@ -167,8 +167,9 @@ def test_store_help_names_exactly_the_forms_the_ledger_opens(tmp_path):
     for form in ("a.db", "sqlite:///b.db", f"sqlite:///{tmp_path}/c.db"):
         assert init(form).returncode == 0, init(form).stderr
     assert {p.name for p in tmp_path.glob("*.db")} == {"a.db", "b.db", "c.db"}
-    refused = init("postgresql://db.example/ledger")
-    assert refused.returncode == 1 and "sqlite:///relative/path.db" in refused.stderr
+    refused = init("postgresql://db.example/ledger")  # the driver must be named
+    assert refused.returncode == 1 and "postgresql+psycopg://USER" in refused.stderr
+    assert "postgresql+psycopg://" in STORE_HELP
 
 
 def test_card_pin_refusal_changes_neither_the_card_nor_the_ledger(tmp_path, store):

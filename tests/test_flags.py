@@ -78,10 +78,10 @@ def test_a_ledger_from_an_older_release_rebuilds_with_the_default_rule(tmp_path)
     with pytest.raises(LedgerError) as refused:  # anything else that opens it is refused, in one line
         Ledger(str(db))
     assert "older release" in str(refused.value) and "cases.flagged" in str(refused.value)
-    assert "casefile rebuild" in str(refused.value) and "\n" not in str(refused.value)
+    assert "casefile init" in str(refused.value) and "\n" not in str(refused.value)
     done = subprocess.run([sys.executable, "-m", "casefile.cli", "--store", str(db), "audit"], capture_output=True,
                           text=True, cwd=ROOT)
-    assert done.returncode == 1 and "casefile rebuild" in done.stderr and "Traceback" not in done.stderr
+    assert done.returncode == 1 and "casefile init" in done.stderr and "Traceback" not in done.stderr
     assert _entries(db) == head  # nothing written by the refusals
     with Ledger(str(db), allow_outdated=True) as led:
         report = led.verify()  # its query tables lack what this release derives, and verify says so

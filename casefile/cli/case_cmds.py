@@ -6,7 +6,17 @@ import argparse
 import sys
 from typing import TYPE_CHECKING
 
-from casefile.cli.common import CASE_ID_HELP, command, err, jsonl, non_negative_int, open_ledger, positive_int
+from casefile.cli.common import (
+    CASE_ID_HELP,
+    command,
+    err,
+    jsonl,
+    non_negative_int,
+    open_ledger,
+    positive_float,
+    positive_int,
+    store,
+)
 from casefile.runs import DEFAULT_METHODS, NAME_POLICIES
 
 if TYPE_CHECKING:
@@ -58,9 +68,18 @@ def cmd_explain(args: argparse.Namespace) -> int:
         if out.outcome == "failed":
             say(out.line())  # on stderr above the progress bar, once, naming the path once
 
-    summary = explain_batch(led, args.inputs, loaded, run, key=args.site_key,
-                            sheet_dir=args.sheets, progress=not args.quiet and sys.stderr.isatty(),
-                            on_outcome=show)
+    if args.workers:
+        from casefile.workers import explain_parallel
+
+        led.close()
+        summary = explain_parallel(store(args), args.inputs, args.model, args.card, run, loaded=loaded,
+                                   workers=args.workers,
+                                   key=args.site_key, sheet_dir=args.sheets, timeout=args.claim_timeout,
+                                   on_outcome=show)
+    else:
+        summary = explain_batch(led, args.inputs, loaded, run, key=args.site_key,
+                                sheet_dir=args.sheets, progress=not args.quiet and sys.stderr.isatty(),
+                                on_outcome=show)
     err(summary.text(list_failures=False))
     if summary.interrupted:
         return 130
@@ -153,6 +172,13 @@ def register(sub: argparse._SubParsersAction) -> None:
                          "digest ('sha256:' and 16 hex digits of the file's SHA-256, for files named after "
                          "patients). Default: the card's record_file_name (false means digest), else base-name; "
                          "digest wins when either asks for it")
+    sp.add_argument("--workers", type=positive_int, metavar="N",
+                    help="explain with N processes, each with its share of the cores; the inputs are claimed "
+                         "through the ledger's database, so several machines can run this against one "
+                         "PostgreSQL ledger over one shared listing and no input is explained twice")
+    sp.add_argument("--claim-timeout", type=positive_float, default=600.0, metavar="SECONDS",
+                    help="with --workers: take over an input whose worker has been silent this long "
+                         "(default 600; keep it above the longest time one input takes)")
     sp.add_argument("--sheets", metavar="DIR", help="also render each new case's sheet into DIR")
     sp.add_argument("-q", "--quiet", action="store_true",
                     help="no progress bar (there is none when stderr is not a terminal)")

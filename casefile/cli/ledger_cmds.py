@@ -1,4 +1,4 @@
-"""Commands on the ledger itself: init, verify, seal, keygen, rebuild."""
+"""Commands on the ledger itself: init, verify, seal, keygen, rebuild, copy."""
 
 from __future__ import annotations
 
@@ -8,12 +8,20 @@ from casefile.cli.common import command, err, jsonl, open_ledger
 
 
 def cmd_init(args: argparse.Namespace) -> int:
-    led = open_ledger(args, create=True)
+    led = open_ledger(args, create=True, allow_outdated=True)  # the upgrade adds what an older release lacked
+    upgraded = led.upgrade()  # a ledger made by an older release: brought up to date, only adding
     seq, h = led.head()
     if args.json:
-        jsonl({"store": led.path, "head_seq": seq, "head_hash": h})
+        line = {"store": led.path, "head_seq": seq, "head_hash": h, "schema_version": led.schema_version}
+        if upgraded is not None:
+            line["upgrade"] = {"seq": upgraded.seq, **upgraded.body}
+        jsonl(line)
     else:
-        print(f"ledger ready at {led.path} ({seq} entries)")
+        if upgraded is not None:
+            b = upgraded.body
+            print(f"ledger upgraded from schema version {b['from_version']} to {b['to_version']} (added: "
+                  f"{', '.join(b['added']) or 'nothing'}); recorded as seq {upgraded.seq}")
+        print(f"ledger ready at {led.path} ({seq} entries, schema version {led.schema_version})")
     return 0
 
 
@@ -70,8 +78,22 @@ def cmd_rebuild(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_copy(args: argparse.Namespace) -> int:
+    from casefile.ledger import copy_ledger
+
+    done = copy_ledger(args.source, args.destination)
+    if args.json:
+        jsonl({"from": done.source, "to": done.destination, "entries": done.entries, "blobs": done.blobs,
+               "head_seq": done.head_seq, "head_hash": done.head_hash})
+    else:
+        print(f"copied {done.entries} entries and {done.blobs} blobs from {done.source} to {done.destination}; "
+              f"both verify, with the same head (seq {done.head_seq}, hash {done.head_hash})")
+    return 0
+
+
 def register(sub: argparse._SubParsersAction) -> None:
-    command(sub, "init", cmd_init, "create an empty ledger (safe to repeat)")
+    command(sub, "init", cmd_init, "create an empty ledger (safe to repeat); upgrade one made by an older "
+            "release, only adding, or say why it cannot be")
 
     sp = command(sub, "verify", cmd_verify, "check every hash, link, blob and query row; exit 1 naming the "
                  "first bad seq", check=_verify_usage)
@@ -98,3 +120,9 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "rebuild", cmd_rebuild, "recompute the query tables from the entries and record that it ran")
     sp.add_argument("--reason", required=True, metavar="TEXT", help="why the query tables are rebuilt (recorded)")
+
+    sp = command(sub, "copy", cmd_copy, "copy a whole ledger into a new or empty one (SQLite or PostgreSQL); both "
+                 "sides are verified and must end with the same head hash")
+    sp.add_argument("--from", dest="source", required=True, metavar="URL", help="the ledger to copy (as --store)")
+    sp.add_argument("--to", dest="destination", required=True, metavar="URL",
+                    help="where to copy it: a new or empty SQLite file or PostgreSQL database")

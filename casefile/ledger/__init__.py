@@ -1,9 +1,11 @@
 """The append-only, hash-chained ledger: entries, blobs, derived query tables, seals and verify.
 
-Imports run one way: tables, derive, merkle, keys, location → store → sealfile, trust → seal, report →
-seal_checks → verify → facade (the ``Ledger`` class) → this package.
+Imports run one way: tables, derive, merkle, keys, location, postgres → engines → store → sealfile, trust →
+seal, report, upgrade, claims → seal_checks → verify → copy, facade (the ``Ledger`` class) → this package.
 """
 
+from casefile.ledger.claims import Claims
+from casefile.ledger.copy import CopyReport, copy_ledger
 from casefile.ledger.facade import Ledger, SealSource
 from casefile.ledger.keys import KeySource, generate_key, load_private_key, load_public_key
 from casefile.ledger.report import ExternalSeal, VerifyReport
@@ -17,7 +19,7 @@ from casefile.ledger.sealfile import (
 from casefile.ledger.store import CaseHistory, Entry, Store, entry_hash, utc_now
 from casefile.ledger.trust import SealTrust, TrustedKeys
 
-__all__ = ["CaseHistory", "Entry", "ExternalSeal", "KeySource", "Ledger", "SealFile", "SealSource", "SealTrust",
-           "Store", "TrustedKeys", "VerifyReport", "entry_hash", "generate_key", "load_private_key",
+__all__ = ["CaseHistory", "Claims", "CopyReport", "Entry", "ExternalSeal", "KeySource", "Ledger", "SealFile", "SealSource", "SealTrust",
+           "Store", "TrustedKeys", "VerifyReport", "copy_ledger", "entry_hash", "generate_key", "load_private_key",
            "load_public_key", "parse_seal_file", "read_seal_file", "seal_file_bytes", "utc_now",
            "write_seal_file"]

@@ -17,18 +17,19 @@ from casefile.ledger.seal import seal
 from casefile.ledger.sealfile import SealFile, read_seal_file
 from casefile.ledger.store import Entry, Store
 from casefile.ledger.trust import TrustedKeys
+from casefile.ledger.upgrade import upgrade
 from casefile.ledger.verify import verify
 
 SealSource = str | os.PathLike[str] | SealFile
 
 
 class Ledger(Store):
-    """An append-only, hash-chained ledger in SQLite, with seals and verify.
+    """An append-only, hash-chained ledger in SQLite or PostgreSQL, with seals, verify and upgrade.
 
     A ledger whose query tables were made by an older release (they lack a column this release derives)
-    is refused in one line saying to run ``casefile rebuild``, unless ``allow_outdated`` (rebuild itself,
-    and verify, which reports it): reading or appending to it would fail half-way or leave its older
-    cases out of the new columns' filters.
+    is refused in one line saying to upgrade it (``casefile init``) or rebuild its query tables, unless
+    ``allow_outdated`` (init, rebuild, and verify, which reports it): reading or appending to it would
+    fail half-way or leave its older cases out of the new columns' filters.
     """
 
     def __init__(self, url: str, *, create: bool = True, synchronous: str = "FULL",
@@ -39,8 +40,13 @@ class Ledger(Store):
             self.close()
             shown = ", ".join(outdated[:4]) + (" ..." if len(outdated) > 4 else "")
             raise LedgerError(f"{self.path}: query tables made by an older release of casefile lack {shown}; run "
-                              "`casefile rebuild --reason TEXT` once (it recomputes them from the entries, which "
-                              "stay as they are)")
+                              "`casefile init` once to upgrade the ledger (or `casefile rebuild --reason TEXT`); "
+                              "both recompute them from the entries, which stay as they are")
+
+    def upgrade(self) -> Entry | None:
+        """Bring a ledger made by an older release to this release's schema version, only adding, and
+        record an ``upgrade`` entry (casefile.ledger.upgrade); None when it is current already."""
+        return upgrade(self)
 
     def verify(self, seal: SealSource | None = None, public_key: KeySource | Sequence[KeySource] | None = None,
                *, site_keys: bool = True, unsigned_ok: bool = False, strict: bool = False) -> VerifyReport:

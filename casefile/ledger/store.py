@@ -1,7 +1,7 @@
 """The store: open a ledger database, append entries with their blobs in one transaction, read them back.
 
 This is the bottom of the ledger package: it imports no other ledger module but the tables, the
-derived-row rules and the location check. Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
+derived-row rules, the location and the engines (SQLite, PostgreSQL). Seals (seal.py) and verify (verify.py) sit above it; casefile.ledger.facade joins them
 into the ``Ledger`` users open.
 """
 
@@ -15,20 +15,21 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any, Self, TypeVar
 
-from sqlalchemy import create_engine, event, func, select
-from sqlalchemy.engine import Connection, Engine
-from sqlalchemy.exc import DatabaseError, IntegrityError, OperationalError
+from sqlalchemy import func, select
+from sqlalchemy.engine import Connection
+from sqlalchemy.exc import DatabaseError, IntegrityError
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
 from casefile.errors import DuplicateCaseError, LedgerError, ValidationError
 from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
-from casefile.ledger.location import check_ledger_file, locate
+from casefile.ledger.engines import Flavour, flavour
+from casefile.ledger.location import locate
 
 READ_CHUNK = 2000
-# One plain INSERT per table at the driver level (qmark style, SQLite): appends are the hot path and
-# skip the statement compiler; the column order comes from the table definitions.
+# One plain INSERT per table at the driver level (qmark style; the engine respells it for psycopg):
+# appends are the hot path and skip the statement compiler; the column order comes from the tables.
 _INSERT_SQL = {tb.name: (f"INSERT INTO {tb.name} ({', '.join(c.name for c in tb.columns)}) "
                          f"VALUES ({', '.join('?' for _ in tb.columns)})", [c.name for c in tb.columns])
                for tb in (t.entries, *t.DERIVED_TABLES)}
@@ -36,12 +37,11 @@ _HEAD_SQL = "SELECT seq, hash FROM entries ORDER BY seq DESC LIMIT 1"
 T = TypeVar("T")
 # Kinds whose bodies are computed from the ledger itself under the write lock; only their own paths
 # (seal.seal, Store.rebuild_derived) append them, through append_in.
-COMPUTED_KINDS = {"seal": "Ledger.seal (casefile seal)", "rebuild": "Ledger.rebuild_derived (casefile rebuild)"}
+COMPUTED_KINDS = {"seal": "Ledger.seal (casefile seal)", "rebuild": "Ledger.rebuild_derived (casefile rebuild)",
+                  "upgrade": "Ledger.upgrade (casefile init)"}
 
 
-def _insert_row(conn: Connection, table: str, row: dict[str, Any]) -> None:
-    sql, cols = _INSERT_SQL[table]
-    conn.exec_driver_sql(sql, tuple(row.get(c) for c in cols))
+_DUPLICATE_CASE = ("cases.run_key", "cases.case_id", "cases_run_key_key", "cases_case_id_key")
 
 
 def utc_now() -> str:
@@ -84,7 +84,8 @@ CASE_PREFIX_MIN = 8  # characters after "cf-" (or of an id without it) that name
 
 
 class Store:
-    """An append-only, hash-chained ledger in SQLite: appends, reads, and the rebuild of its query tables.
+    """An append-only, hash-chained ledger in SQLite or PostgreSQL: appends, reads, and the rebuild of its
+    query tables.
 
     Users open ``casefile.ledger.Ledger``, which is this class plus ``seal`` and ``verify``.
     """
@@ -99,41 +100,32 @@ class Store:
         if synchronous.upper() not in ("FULL", "NORMAL"):
             raise LedgerError(f"synchronous must be FULL or NORMAL, not {synchronous!r}")
         self.synchronous = synchronous.upper()
-        self.url, path = locate(url)
-        check_ledger_file(path, create=create)
-        self.path = path
-        self.engine = self._make_engine()
+        loc = locate(url)
+        self.url, self.path = loc.url, loc.path
+        # the file's folder, for a SQLite ledger (verify's note on keys kept beside it); None on a server
+        self.file = loc.path if loc.engine == "sqlite" else None
+        self.flavour: Flavour = flavour(loc, self.synchronous)
+        self.flavour.check(create)
+        self.engine = self.flavour.make_engine()
+        self._insert = {name: (self.flavour.sql(sql), cols) for name, (sql, cols) in _INSERT_SQL.items()}
         try:
-            self._create()
+            with self.engine.connect().execution_options(write=True) as conn, conn.begin():
+                self.schema_version = self.flavour.create(conn)
         except DatabaseError as exc:  # also "file is not a database"
-            raise LedgerError(f"{path}: cannot open ledger: {exc.orig}") from None
+            self.engine.dispose()
+            raise LedgerError(f"{self.path}: cannot open ledger: {_first_line(exc)}") from None
+        if self.schema_version > t.SCHEMA_VERSION:
+            self.engine.dispose()
+            raise LedgerError(f"{self.path}: made by a newer release (schema version {self.schema_version}; this "
+                              f"release knows up to {t.SCHEMA_VERSION}); open it with that release")
 
-    def _make_engine(self) -> Engine:
-        engine = create_engine(self.url, connect_args={"timeout": 60})
+    def sql(self, text: str) -> str:
+        """Driver-level SQL written with ``?`` placeholders, spelt for this ledger's engine."""
+        return self.flavour.sql(text)
 
-        @event.listens_for(engine, "connect")
-        def _on_connect(dbapi_conn: Any, _record: Any) -> None:
-            dbapi_conn.isolation_level = None  # we issue BEGIN ourselves
-            cur = dbapi_conn.cursor()
-            cur.execute("PRAGMA journal_mode=WAL")
-            cur.execute(f"PRAGMA synchronous={self.synchronous}")
-            cur.execute("PRAGMA foreign_keys=ON")
-            cur.close()
-
-        @event.listens_for(engine, "begin")
-        def _on_begin(conn: Connection) -> None:
-            # BEGIN IMMEDIATE takes the write lock up front, so two writers queue instead of racing
-            # for the chain head.
-            mode = "IMMEDIATE" if conn.get_execution_options().get("write") else "DEFERRED"
-            conn.exec_driver_sql(f"BEGIN {mode}")
-
-        return engine
-
-    def _create(self) -> None:
-        with self.engine.connect().execution_options(write=True) as conn, conn.begin():
-            t.metadata.create_all(conn)
-            for ddl in t.SQLITE_TRIGGERS:
-                conn.exec_driver_sql(ddl)
+    def _insert_row(self, conn: Connection, table: str, row: dict[str, Any]) -> None:
+        sql, cols = self._insert[table]
+        conn.exec_driver_sql(sql, tuple(row.get(c) for c in cols))
 
     def outdated_tables(self) -> list[str]:
         """Query-table columns this release derives that the database lacks (a ledger made by an older
@@ -141,7 +133,7 @@ class Store:
         have: dict[str, set[str]] = {}
         with self.engine.connect() as conn:
             for tb in t.DERIVED_TABLES:
-                have[tb.name] = {r[1] for r in conn.exec_driver_sql(f"PRAGMA table_info({tb.name})")}
+                have[tb.name] = self.flavour.columns(conn, tb.name)
         return [f"{tb.name}.{c.name}" for tb in t.DERIVED_TABLES for c in tb.columns if c.name not in have[tb.name]]
 
     def close(self) -> None:
@@ -170,25 +162,46 @@ class Store:
             return []
         return self.transaction(lambda conn: self._write(conn, prepared))
 
-    def transaction(self, work: Callable[[Connection], T]) -> T:
-        """Run ``work(conn)`` in one write transaction (BEGIN IMMEDIATE): all it appends is kept, or none."""
+    def transaction(self, work: Callable[[Connection], T], *, upgrading: bool = False) -> T:
+        """Run ``work(conn)`` in one write transaction holding the chain-head lock (SQLite: BEGIN IMMEDIATE;
+        PostgreSQL: an advisory transaction lock): all it appends is kept, or none."""
+        if self.schema_version < t.SCHEMA_VERSION and not upgrading:
+            raise LedgerError(f"{self.path}: this ledger is at schema version {self.schema_version} and this release "
+                              f"writes version {t.SCHEMA_VERSION}; run `casefile init` to upgrade it (it only adds)")
         try:
             with self.engine.connect().execution_options(write=True) as conn, conn.begin():
+                self.flavour.lock(conn)
                 return work(conn)
         except IntegrityError as exc:
-            msg = str(exc.orig)
-            if "cases.run_key" in msg or "cases.case_id" in msg:
+            msg = _first_line(exc)
+            if any(k in msg for k in _DUPLICATE_CASE):
                 raise DuplicateCaseError("case refused: this input was already recorded with the same model "
                                          "and settings") from None
             raise LedgerError(f"{self.path}: append refused: {msg}") from None
-        except OperationalError as exc:
-            raise LedgerError(f"{self.path}: append failed: {exc.orig}") from None
+        except DatabaseError as exc:
+            raise LedgerError(f"{self.path}: append failed: {_first_line(exc)}") from None
 
     def append_in(self, conn: Connection, kind: str, body: dict[str, Any],
                   blobs: Iterable[bytes] | None = None) -> Entry:
         """Append one entry inside a write transaction opened by ``transaction`` (for seals and rebuilds,
         whose bodies are computed from the ledger under the same lock)."""
         return self._write(conn, [self._prepare(kind, body, blobs)])[0]
+
+    def write_copied(self, conn: Connection, entry: Entry, blobs: dict[str, bytes]) -> None:
+        """Write an entry read from another ledger, byte for byte, inside a write transaction (casefile
+        copy): its hash must follow from its prev_hash, kind and body, and ``blobs`` (digest → bytes)
+        holds the blobs it refers to that this ledger lacks. Its query rows are derived here."""
+        if entry_hash(entry.prev_hash, entry.kind, entry.raw) != entry.hash:
+            raise LedgerError(f"{self.path}: copy refused at seq {entry.seq}: its hash does not follow from its "
+                              "kind and body")
+        self._store_blobs(conn, list(blobs.values()), list(blobs))
+        self._insert_row(conn, "entries", {"seq": entry.seq, "kind": entry.kind, "body": entry.raw.decode("utf-8"),
+                                           "prev_hash": entry.prev_hash, "hash": entry.hash})
+        self._insert_derived(conn, derive(entry.seq, entry.kind, entry.body,
+                                          referenced_blobs(entry.raw.decode("utf-8"))))
+
+    def has_blob(self, conn: Connection, digest: str) -> bool:
+        return conn.execute(select(t.blobs.c.digest).where(t.blobs.c.digest == digest)).first() is not None
 
     @staticmethod
     def _prepare(kind: str, body: dict[str, Any], blob_iter: Iterable[bytes] | None) -> tuple:
@@ -214,18 +227,16 @@ class Store:
             seq += 1
             h = entry_hash(prev, kind, raw)
             self._store_blobs(conn, blob_list, digests)
-            _insert_row(conn, "entries", {"seq": seq, "kind": kind, "body": raw.decode("utf-8"),
+            self._insert_row(conn, "entries", {"seq": seq, "kind": kind, "body": raw.decode("utf-8"),
                                           "prev_hash": prev, "hash": h})
             self._insert_derived(conn, derive(seq, kind, clean, referenced))
             out.append(Entry(seq, kind, clean, prev, h, raw))
             prev = h
         return out
 
-    @staticmethod
-    def _store_blobs(conn: Connection, blob_list: list[bytes], digests: list[str]) -> None:
+    def _store_blobs(self, conn: Connection, blob_list: list[bytes], digests: list[str]) -> None:
         for data, digest in zip(blob_list, digests, strict=True):
-            conn.exec_driver_sql("INSERT OR IGNORE INTO blobs (digest, size, data) VALUES (?, ?, ?)",
-                                 (digest, len(data), data))
+            conn.exec_driver_sql(self.flavour.blob_insert, (digest, len(data), data))
 
     @staticmethod
     def _require_blobs(conn: Connection, digests: set[str], kind: str) -> None:
@@ -234,10 +245,9 @@ class Store:
                 raise ValidationError(f"{kind} body refused: it refers to blob {d[:12]}… which is neither "
                                       "given nor stored")
 
-    @staticmethod
-    def _insert_derived(conn: Connection, rows: list[tuple[str, dict[str, Any]]]) -> None:
+    def _insert_derived(self, conn: Connection, rows: list[tuple[str, dict[str, Any]]]) -> None:
         for name, row in rows:
-            _insert_row(conn, name, row)
+            self._insert_row(conn, name, row)
 
     def rebuild_derived(self, reason: str) -> Entry:
         """Recompute every query table from the entries and record a ``rebuild`` entry saying so.
@@ -252,25 +262,30 @@ class Store:
             raise ValidationError("rebuild refused: the reason is empty; say why the query tables are rebuilt")
 
         def work(conn: Connection) -> Entry:
-            for name in t.DERIVED_TRIGGER_NAMES:
-                conn.exec_driver_sql(f"DROP TRIGGER IF EXISTS {name}")
-            for tb in t.DERIVED_TABLES:  # re-created, so a ledger made by an older release gains new columns
-                tb.drop(conn, checkfirst=True)
-                tb.create(conn)
-            counts = {tb.name: 0 for tb in t.DERIVED_TABLES}
-            n = 0
-            for e in self.entries(conn=conn):
-                rows = derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8")))
-                self._insert_derived(conn, rows)
-                for name, _ in rows:
-                    counts[name] += 1
-                n += 1
-            for ddl in t.DERIVED_TRIGGERS:
-                conn.exec_driver_sql(ddl)
+            n, counts = self.rederive(conn)
             body = {"rebuilt_at": utc_now(), "reason": reason.strip(), "entries": n, "rows": counts}
             return self.append_in(conn, "rebuild", body)
 
         return self.transaction(work)
+
+    def rederive(self, conn: Connection) -> tuple[int, dict[str, int]]:
+        """Inside a write transaction (rebuild, upgrade): drop the query tables' guards, re-create and refill
+        the tables from the entries (so a ledger made by an older release gains new columns), put the
+        guards back; return the entries read and the rows written per table."""
+        self.flavour.drop_derived_guards(conn)
+        for tb in t.DERIVED_TABLES:
+            tb.drop(conn, checkfirst=True)
+            tb.create(conn)
+        counts = {tb.name: 0 for tb in t.DERIVED_TABLES}
+        n = 0
+        for e in self.entries(conn=conn):
+            rows = derive(e.seq, e.kind, e.body, referenced_blobs(e.raw.decode("utf-8")))
+            self._insert_derived(conn, rows)
+            for name, _ in rows:
+                counts[name] += 1
+            n += 1
+        self.flavour.create_derived_guards(conn)
+        return n, counts
 
     # ------------------------------------------------------------------ reading
     def head(self) -> tuple[int, str]:
@@ -400,6 +415,12 @@ class Store:
             raise LedgerError(f"no query table {table!r}")
         with self.engine.connect() as conn:
             return [dict(r._mapping) for r in conn.execute(select(tb).order_by(tb.c.seq))]
+
+
+def _first_line(exc: DatabaseError) -> str:
+    """The database's own message, first line only (PostgreSQL adds CONTEXT lines after it)."""
+    text = str(exc.orig if exc.orig is not None else exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
 
 
 _HEX64 = re.compile(r"^[0-9a-f]{64}$")

@@ -135,6 +135,32 @@ seals = Table(
     Column("signed", Integer, nullable=False),
 )
 
+# The ledger's schema version: one row when a ledger is made (seq 0) and one per upgrade (the seq of the
+# `upgrade` entry that records it). A ledger without this table was made before versions were recorded:
+# version 1. Upgrades only ever add (tables, columns, entry kinds); see casefile.ledger.upgrade.
+SCHEMA_VERSION = 2
+schema_versions = Table(
+    "schema_versions",
+    metadata,
+    Column("version", Integer, primary_key=True, autoincrement=False),
+    Column("seq", Integer, nullable=False),
+)
+
+# Work claims of `casefile explain --workers`: which worker is explaining which input of a shared
+# listing. Not history (rows are taken, renewed and finished, so they change); not hashed, copied or
+# verified, and the one table a writer role may UPDATE.
+claims = Table(
+    "claims",
+    metadata,
+    Column("claim_key", String(64), primary_key=True),
+    Column("position", Integer, nullable=False),
+    Column("input", Text, nullable=False),
+    Column("worker", String(128)),
+    Column("claimed_at", Float),
+    Column("done", Integer, nullable=False),
+    Index("ix_claims_open", "done", "position"),
+)
+
 DERIVED_TABLES = (entry_blobs, cases, case_checks, failures, amendments, reviews, adjudications, draws, seals)
 
 # Append-only, enforced by SQLite itself: an UPDATE or DELETE on entries or blobs aborts, and an
@@ -148,6 +174,10 @@ ENTRY_TRIGGERS = [
        BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: blobs cannot be changed'); END""",
     """CREATE TRIGGER IF NOT EXISTS blobs_no_delete BEFORE DELETE ON blobs
        BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: blobs cannot be deleted'); END""",
+    """CREATE TRIGGER IF NOT EXISTS schema_versions_no_update BEFORE UPDATE ON schema_versions
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: schema versions cannot be changed'); END""",
+    """CREATE TRIGGER IF NOT EXISTS schema_versions_no_delete BEFORE DELETE ON schema_versions
+       BEGIN SELECT RAISE(ABORT, 'casefile ledger is append-only: schema versions cannot be deleted'); END""",
     f"""CREATE TRIGGER IF NOT EXISTS entries_extend_head BEFORE INSERT ON entries
        WHEN NEW.seq != COALESCE((SELECT MAX(seq) FROM entries), 0) + 1
          OR NEW.prev_hash != COALESCE((SELECT hash FROM entries ORDER BY seq DESC LIMIT 1), '{GENESIS_HASH}')

@@ -64,13 +64,13 @@ def scan_blobs(store: Store, report: VerifyReport) -> set[str]:
             last = rows[-1].digest
 
 
-def _chunks(conn: Connection) -> Iterator[list[_EntryRow]]:
+def _chunks(store: Store, conn: Connection) -> Iterator[list[_EntryRow]]:
     pos = 1
+    sql = store.sql("SELECT seq, kind, body, prev_hash, hash FROM entries WHERE seq >= ? ORDER BY seq LIMIT ?")
     while True:
         # plain driver-level tuples: this loop runs once per entry on ledgers of any size
         rows = [_EntryRow(*r) for r in conn.exec_driver_sql(
-            "SELECT seq, kind, body, prev_hash, hash FROM entries WHERE seq >= ? ORDER BY seq LIMIT ?",
-            (pos, READ_CHUNK)).fetchall()]
+            sql, (pos, READ_CHUNK)).fetchall()]
         if not rows:
             return
         yield rows
@@ -151,10 +151,10 @@ class BlobRefs:
 class DerivedRows:
     """The query-table rows of one chunk of entries, compared with what each entry derives."""
 
-    def __init__(self, conn: Connection, lo: int, hi: int) -> None:
+    def __init__(self, store: Store, conn: Connection, lo: int, hi: int) -> None:
         self.actual: dict[tuple[str, int], list[tuple]] = {}
         for name, cols in _COLUMNS.items():
-            sql = f"SELECT {', '.join(cols)} FROM {name} WHERE seq >= ? AND seq <= ?"
+            sql = store.sql(f"SELECT {', '.join(cols)} FROM {name} WHERE seq >= ? AND seq <= ?")
             for r in conn.exec_driver_sql(sql, (lo, hi)).fetchall():
                 self.actual.setdefault((name, r[0]), []).append(tuple(r))
 
@@ -182,11 +182,11 @@ def orphan_rows(conn: Connection, head_seq: int) -> tuple[int, str] | None:
     return None
 
 
-def _check_chunk(conn: Connection, rows: list[_EntryRow], walk: ChainWalk, seals: SealChecker, bad_blobs: set[str],
+def _check_chunk(store: Store, conn: Connection, rows: list[_EntryRow], walk: ChainWalk, seals: SealChecker, bad_blobs: set[str],
                  report: VerifyReport) -> tuple[int, str] | None:
     """Every check, entry by entry, over one chunk (its parsed bodies are freed before the next is read)."""
     parsed = _parse(rows)
-    blobs, derived = BlobRefs(conn, bad_blobs, parsed), DerivedRows(conn, rows[0].seq, rows[-1].seq)
+    blobs, derived = BlobRefs(conn, bad_blobs, parsed), DerivedRows(store, conn, rows[0].seq, rows[-1].seq)
     for r in rows:
         body, refs = parsed[r.seq]
         problem = (walk.check(r, body) or blobs.check(refs) or derived.check(r.seq, r.kind, body, refs)
@@ -221,8 +221,8 @@ def verify(store: Store, seal_file: SealFile | None = None, trusted: TrustedKeys
     bad_blobs = scan_blobs(store, report)
     walk, seals = ChainWalk(strict), SealChecker(trusted, seal_file)
     with store.engine.connect() as conn:
-        for rows in _chunks(conn):
-            failure = _check_chunk(conn, rows, walk, seals, bad_blobs, report)
+        for rows in _chunks(store, conn):
+            failure = _check_chunk(store, conn, rows, walk, seals, bad_blobs, report)
             if failure:
                 return report.fail(*failure)
         report.head_seq, report.head_hash = walk.expected_seq - 1, walk.prev
@@ -241,7 +241,7 @@ def verify(store: Store, seal_file: SealFile | None = None, trusted: TrustedKeys
 
 
 def _notes(store: Store, trusted: TrustedKeys, report: VerifyReport) -> None:
-    home = Path(store.path).resolve().parent
+    home = None if store.file is None else Path(store.file).resolve().parent  # None: a database server
     for f in trusted.files:
         if Path(f).resolve().parent == home:
             report.notes.append(f"the trusted key {f} lies in the ledger's own folder: whoever can change the "

@@ -1,7 +1,8 @@
 """Query tables are guarded in the database like the entries; only the rebuild path writes them, and says so.
 
 Also: duplicate cases raise DuplicateCaseError, and the ledger package imports run one way.
-No outside source applies: these are casefile's own rules (DESIGN.md, "Trust boundaries").
+No outside source applies: these are casefile's own rules (DESIGN.md, "Trust boundaries"). The guard
+tests run on both engines (a SQLite file, and a throwaway PostgreSQL server).
 """
 
 from __future__ import annotations
@@ -9,7 +10,6 @@ from __future__ import annotations
 import ast
 import hashlib
 import json
-import sqlite3
 from pathlib import Path
 
 import pytest
@@ -18,16 +18,17 @@ from casefile.errors import DuplicateCaseError, ValidationError
 from casefile.ledger import Ledger
 from casefile.ledger import tables as t
 from tests.ledger.bodies import amendment_body, case_body
+from tests.ledger.rawdb import Raw
 from tests.ledger.sealing import cli, refused_line
 
 PACKAGE = Path(__file__).resolve().parents[2] / "casefile" / "ledger"
 
 
 @pytest.fixture()
-def full(tmp_path) -> Path:
+def full(store_url) -> str:
     """A ledger with at least one row in every query table."""
-    db = tmp_path / "l.db"
-    with Ledger(str(db)) as led:
+    db = store_url
+    with Ledger(db) as led:
         c = led.append("case", case_body(1, blob=b"picture"), blobs=[b"picture"])
         led.append("failed", {"attempted_at": "2026-12-01T10:00:00Z", "file_name": "a.png", "file_sha256": None,
                               "stage": "load", "reason": "a.png: truncated"})
@@ -44,8 +45,8 @@ def full(tmp_path) -> Path:
     return db
 
 
-def _raw(db: Path) -> sqlite3.Connection:
-    return sqlite3.connect(db, isolation_level=None)
+def _raw(db: str) -> Raw:
+    return Raw(db)
 
 
 @pytest.mark.parametrize("table", [tb.name for tb in t.DERIVED_TABLES])
@@ -56,23 +57,23 @@ def test_raw_update_and_delete_of_every_query_table_are_refused(full, table):
     column = next(c.name for c in t.metadata.tables[table].columns if c.name != "seq")
     for sql in (f"UPDATE {table} SET {column} = {column}", f"UPDATE {table} SET seq = seq + 100",
                 f"DELETE FROM {table}", f"DELETE FROM {table} WHERE seq = {rows[0][0]}"):
-        with pytest.raises(sqlite3.DatabaseError, match=f"query table {table} is derived"):
+        with pytest.raises(con.Error, match=f"query table {table} is derived"):
             con.execute(sql)
     assert con.execute(f"SELECT * FROM {table}").fetchall() == rows
     # a row can be added only together with its entry (the head), never for an older one
     cols = [c.name for c in t.metadata.tables[table].columns]
     first = {**dict(zip(cols, rows[0], strict=True)), "seq": 1}  # seq 1 is not the head (seq 7)
-    with pytest.raises(sqlite3.DatabaseError, match="only with its entry"):
+    with pytest.raises(con.Error, match="only with its entry"):
         con.execute(f"INSERT INTO {table} ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
                     tuple(first.values()))
     con.close()
-    with Ledger(str(full)) as led:
+    with Ledger(full) as led:
         assert led.verify().ok
 
 
 def test_an_update_of_cases_status_cannot_change_what_audit_returns(full):
     con = _raw(full)
-    with pytest.raises(sqlite3.DatabaseError):
+    with pytest.raises(con.Error):
         con.execute("UPDATE cases SET status = 'fail'")
     con.close()
     done = cli(full, "audit", "--status", "pass", "--json")
@@ -80,18 +81,19 @@ def test_an_update_of_cases_status_cannot_change_what_audit_returns(full):
 
 
 def test_every_query_table_carries_its_guards(full):
-    names = {r[0] for r in _raw(full).execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")}
+    names = _raw(full).triggers()
     for tb in t.DERIVED_TABLES:
         assert {f"{tb.name}_no_update", f"{tb.name}_no_delete", f"{tb.name}_head_only"} <= names
 
 
 def test_dropped_guards_come_back_when_the_ledger_is_opened(full):
     con = _raw(full)
-    con.execute("DROP TRIGGER cases_no_update")
+    con.execute("DROP TRIGGER cases_no_update" + (" ON cases" if con.postgres else ""))
     con.close()
-    Ledger(str(full)).close()
-    with pytest.raises(sqlite3.DatabaseError, match="derived"):
-        _raw(full).execute("UPDATE cases SET status = 'fail'")
+    Ledger(full).close()
+    con = _raw(full)
+    with pytest.raises(con.Error, match="derived"):
+        con.execute("UPDATE cases SET status = 'fail'")
 
 
 def test_rebuild_command_records_that_it_ran(full):
@@ -101,17 +103,17 @@ def test_rebuild_command_records_that_it_ran(full):
     assert line["seq"] == 8 and line["reason"] == "checking the rebuild path" and line["entries"] == 7
     assert line["rows"]["cases"] == 1 and line["rows"]["seals"] == 1 and line["rows"]["entry_blobs"] == 1
     assert line["rows"]["case_checks"] == 1 and line["rows"]["adjudications"] == 1
-    with Ledger(str(full)) as led:
+    with Ledger(full) as led:
         assert led.get(8).kind == "rebuild" and led.verify().ok
     line = refused_line(cli(full, "rebuild", "--reason", "  "))
     assert "reason is empty" in line, line
     assert cli(full, "rebuild").returncode == 2  # --reason is required
-    with Ledger(str(full)) as led:
+    with Ledger(full) as led:
         assert led.count() == 8
 
 
-def test_duplicate_case_raises_duplicate_case_error(tmp_path):
-    with Ledger(str(tmp_path / "l.db")) as led:
+def test_duplicate_case_raises_duplicate_case_error(store_url):
+    with Ledger(store_url) as led:
         led.append("case", case_body(1))
         again = case_body(1)
         again["case_id"] = "c-other"  # same input, model and settings: the same run
@@ -148,8 +150,9 @@ def test_the_ledger_package_imports_one_way():
         imports, nested = _ledger_imports(f)
         assert not nested, f"{f.name} imports a ledger module inside a function"
         graph[f.stem] = imports - {f.stem}
-    assert graph["store"] <= {"tables", "derive", "location"}  # the store is at the bottom
-    assert graph["location"] == set()  # where a ledger lives: below the store
+    assert graph["store"] <= {"tables", "derive", "location", "engines"}  # the store is at the bottom
+    assert graph["engines"] <= {"tables", "postgres", "location"}  # the engines' differences, below it
+    assert graph["location"] == set() and graph["postgres"] <= {"tables"}  # below the store
     assert "facade" not in set().union(*graph.values())  # only the package imports the facade
     seen: dict[str, int] = {}
 

@@ -74,10 +74,10 @@ def test_open_without_create_needs_a_ledger(tmp_path):
     again.close()
 
 
-@pytest.mark.parametrize("url", ["postgresql://host/db", "sqlite://", "sqlite:///:memory:",
+@pytest.mark.parametrize("url", ["mysql://host/db", "sqlite://", "sqlite:///:memory:",
                                  "sqlite+pysqlite:///x.db", "sqlite:///x.db?mode=ro"])
-def test_only_sqlite_files_are_accepted_and_the_message_says_which_forms(url):
-    with pytest.raises(LedgerError, match="sqlite:///relative/path.db"):
+def test_only_sqlite_files_and_postgresql_are_accepted_and_the_message_says_which_forms(url):
+    with pytest.raises(LedgerError, match=r"sqlite:///relative/path.db.*postgresql\+psycopg://"):
         Ledger(url)
 
 

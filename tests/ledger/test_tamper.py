@@ -1,16 +1,16 @@
 """Tampering through raw SQL, as an attacker with file access would; verify must name the first bad seq.
 
-Outside sources: none beyond SHA-256 (hashlib) and the sqlite3 module an attacker would use; the
-hash-chain and seal rules are casefile's own (DESIGN.md, "The ledger").
+Every test runs on both engines: a SQLite file, and a database on a throwaway PostgreSQL server.
+
+Outside sources: none beyond SHA-256 (hashlib) and the sqlite3 and psycopg modules an attacker would use;
+the hash-chain and seal rules are casefile's own (DESIGN.md, "The ledger").
 """
 
 from __future__ import annotations
 
 import json
-import sqlite3
 import subprocess
 import sys
-from pathlib import Path
 
 import pytest
 
@@ -20,14 +20,15 @@ from casefile.ledger import tables as t
 from casefile.ledger.derive import derive
 from casefile.ledger.store import entry_hash, referenced_blobs
 from tests.ledger.bodies import amendment_body, case_body
+from tests.ledger.rawdb import Raw
 
 BLOB = b"\x89PNG pretend picture bytes" * 10
 
 
 @pytest.fixture()
-def db(tmp_path: Path) -> Path:
-    path = tmp_path / "ledger.db"
-    led = Ledger(str(path))
+def db(store_url: str) -> str:
+    path = store_url
+    led = Ledger(path)
     for i in range(1, 11):
         blob = BLOB + bytes([i]) if i in (4, 7) else None
         led.append("case", case_body(i, blob=blob), blobs=[blob] if blob else None)
@@ -35,15 +36,11 @@ def db(tmp_path: Path) -> Path:
     return path
 
 
-def raw(path: Path, *, drop_triggers: bool = True) -> sqlite3.Connection:
-    con = sqlite3.connect(path, isolation_level=None)
-    if drop_triggers:
-        for name in t.TRIGGER_NAMES:
-            con.execute(f"DROP TRIGGER IF EXISTS {name}")
-    return con
+def raw(path: str, *, drop_triggers: bool = True) -> Raw:
+    return Raw(path, drop_triggers=drop_triggers)
 
 
-def report(path: Path, seal: str | None = None):
+def report(path: str, seal: str | None = None):
     led = Ledger(str(path), create=False)
     try:
         return led.verify(seal)
@@ -56,17 +53,18 @@ def test_intact_ledger_verifies(db):
     assert r.ok and r.entries == 10 and r.blobs == 2 and r.first_bad_seq is None
 
 
-@pytest.mark.parametrize("sql", [
-    "UPDATE entries SET body = body || ' ' WHERE seq = 3",
-    "DELETE FROM entries WHERE seq = 10",
-    "UPDATE blobs SET data = x'00'",
-    "DELETE FROM blobs",
-    f"INSERT INTO entries (seq, kind, body, prev_hash, hash) VALUES (99, 'seal', '{{}}', '{'0' * 64}', '{'1' * 64}')",
+@pytest.mark.parametrize(("sql", "params"), [
+    ("UPDATE entries SET body = body || ' ' WHERE seq = 3", ()),
+    ("DELETE FROM entries WHERE seq = 10", ()),
+    ("UPDATE blobs SET data = ?", (b"\x00",)),
+    ("DELETE FROM blobs", ()),
+    (f"INSERT INTO entries (seq, kind, body, prev_hash, hash) VALUES (99, 'seal', '{{}}', '{'0' * 64}', '{'1' * 64}')",
+     ()),
 ])
-def test_database_refuses_changes_while_triggers_stand(db, sql):
+def test_database_refuses_changes_while_triggers_stand(db, sql, params):
     con = raw(db, drop_triggers=False)
-    with pytest.raises(sqlite3.DatabaseError, match="append-only"):
-        con.execute(sql)
+    with pytest.raises(con.Error, match="append-only"):
+        con.execute(sql, params)
     con.close()
     assert report(db).ok
 
@@ -124,7 +122,7 @@ def test_derived_row_that_disagrees(db):
     assert not r.ok and r.first_bad_seq == 3 and "derived row" in r.problem
 
 
-def _rewrite(path: Path, rows: list[tuple[str, bytes]], *, rechain: bool) -> None:
+def _rewrite(path: str, rows: list[tuple[str, bytes]], *, rechain: bool) -> None:
     """Replace the whole history with ``rows`` (kind, body), keeping or recomputing hashes as asked.
 
     The attacker also rewrites the derived tables, so only the hash chain (or a seal) can tell.
@@ -141,7 +139,8 @@ def _rewrite(path: Path, rows: list[tuple[str, bytes]], *, rechain: bool) -> Non
             p = prev
         else:
             p, h = old[old_seq][3], old[old_seq][4]
-        con.execute("INSERT INTO entries VALUES (?, ?, ?, ?, ?)", (seq, kind, body.decode(), p, h))
+        con.execute("INSERT INTO entries (seq, kind, body, prev_hash, hash) VALUES (?, ?, ?, ?, ?)",
+                    (seq, kind, body.decode(), p, h))
         parsed = json.loads(body)
         for name, row in derive(seq, kind, parsed, referenced_blobs(body.decode())):
             cols = ", ".join(row)
@@ -150,7 +149,7 @@ def _rewrite(path: Path, rows: list[tuple[str, bytes]], *, rechain: bool) -> Non
     con.close()
 
 
-def _history(path: Path) -> list[tuple[str, bytes, int]]:
+def _history(path: str) -> list[tuple[str, bytes, int]]:
     con = raw(path, drop_triggers=False)
     rows = [(k, b.encode(), s) for s, k, b in con.execute("SELECT seq, kind, body FROM entries ORDER BY seq")]
     con.close()
@@ -175,7 +174,7 @@ def test_two_entries_swapped(db):
 
 
 def test_tail_truncated_after_a_seal_is_caught_only_with_the_seal_file(db, tmp_path):
-    led = Ledger(str(db))
+    led = Ledger(db)
     seal_entry = led.seal()
     seal_path = tmp_path / "seal.json"
     seal_path.write_bytes(seal_file_bytes(seal_entry))
@@ -188,7 +187,7 @@ def test_tail_truncated_after_a_seal_is_caught_only_with_the_seal_file(db, tmp_p
 
 
 def test_whole_chain_rewritten_is_caught_by_the_seal_file(db, tmp_path):
-    led = Ledger(str(db))
+    led = Ledger(db)
     seal_path = tmp_path / "seal.json"
     seal_path.write_bytes(seal_file_bytes(led.seal()))
     led.close()
@@ -203,7 +202,7 @@ def test_whole_chain_rewritten_is_caught_by_the_seal_file(db, tmp_path):
 
 
 def test_cli_exit_codes(db):
-    cmd = [sys.executable, "-m", "casefile.cli", "--store", str(db), "verify"]
+    cmd = [sys.executable, "-m", "casefile.cli", "--store", db, "verify"]
     assert subprocess.run(cmd, capture_output=True).returncode == 0
     con = raw(db)
     con.execute("UPDATE entries SET kind = 'seal' WHERE seq = 2")
