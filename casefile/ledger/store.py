@@ -18,6 +18,7 @@ from typing import Any, Self, TypeVar
 from sqlalchemy import create_engine, event, func, select
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.exc import DatabaseError, IntegrityError, OperationalError
+from sqlalchemy.sql.elements import ColumnElement
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
@@ -377,11 +378,7 @@ class Store:
         c = t.cases.c
         q = select(t.cases).order_by(c.seq)
         if model:
-            name, _, version = model.partition("@")
-            cond = (c.model_name == name) if not version else ((c.model_name == name) & (c.model_version == version))
-            if len(model) >= 8 and all(ch in "0123456789abcdef" for ch in model):
-                cond = cond | c.model_digest.startswith(model)
-            q = q.where(cond)
+            q = q.where(model_condition(model))
         if label:
             q = q.where(c.label == label)
         if status:
@@ -400,6 +397,17 @@ class Store:
             raise LedgerError(f"no query table {table!r}")
         with self.engine.connect() as conn:
             return [dict(r._mapping) for r in conn.execute(select(tb).order_by(tb.c.seq))]
+
+
+def model_condition(model: str) -> ColumnElement[bool]:
+    """The SQL condition on the cases table for ``model``: a name, name@version, or digest prefix
+    (8+ lowercase hex digits)."""
+    c = t.cases.c
+    name, _, version = model.partition("@")
+    cond = (c.model_name == name) if not version else ((c.model_name == name) & (c.model_version == version))
+    if len(model) >= 8 and all(ch in "0123456789abcdef" for ch in model):
+        cond = cond | c.model_digest.startswith(model)
+    return cond
 
 
 _HEX64 = re.compile(r"^[0-9a-f]{64}$")
