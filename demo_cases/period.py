@@ -11,6 +11,7 @@ from __future__ import annotations
 import hashlib
 from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
+from itertools import chain
 from typing import Any
 
 import numpy as np
@@ -116,8 +117,8 @@ def populate(ledger: Any, n: int, *, start: str = "2026-09-01", days: int = 90, 
     chunk at a time; returns (seq, body) of the cases of the last chunk only, to keep memory flat."""
     last: list[tuple[int, dict[str, Any]]] = []
     batch: list[tuple[str, dict[str, Any], None]] = []
-    items = [*(("case", b) for b in case_bodies(n, start, days, seed)),
-             *(("failed", b) for b in failed_bodies(failures, start, days, seed))]
+    items = chain((("case", b) for b in case_bodies(n, start, days, seed)),
+                  (("failed", b) for b in failed_bodies(failures, start, days, seed)))
     for kind, body in items:
         batch.append((kind, body, None))
         if len(batch) >= chunk:

@@ -39,16 +39,39 @@ def cmd_replay(args: argparse.Namespace) -> int:
 
 
 def _replay_usage(args: argparse.Namespace) -> str | None:
+    """Split the positionals: CASE_ID INPUT, or with --all one FOLDER (set before CASE_ID is resolved)."""
+    given = list(args.targets)
+    args.case_id = args.input = args.folder = None
     if args.all:
-        if args.case_id is None or args.input is not None:
+        if len(given) != 1:
             return "--all takes one FOLDER of inputs: casefile replay --all --model M --card C FOLDER"
-        args.folder, args.case_id = args.case_id, None  # the one positional is the folder, not a case id
+        args.folder = given[0]
         return None
     if args.since or args.until:
         return "--since and --until go with --all"
-    if args.case_id is None or args.input is None:
+    if len(given) != 2:
         return "give CASE_ID and INPUT (or --all FOLDER)"
+    args.case_id, args.input = given
     return None
+
+
+def _intermix(sp: argparse.ArgumentParser) -> None:
+    """Let ``sp`` take positionals on both sides of its options (``CASE_ID --model M --card C INPUT``):
+    the call its parent makes goes through argparse's intermixed parsing, which itself calls the plain
+    method (kept here) for each of its passes."""
+    plain = sp.parse_known_args
+    busy = [False]
+
+    def parse(args=None, namespace=None):  # noqa: ANN001, ANN202 - argparse's own signature
+        if busy[0]:
+            return plain(args, namespace)
+        busy[0] = True
+        try:
+            return sp.parse_known_intermixed_args(args, namespace)
+        finally:
+            busy[0] = False
+
+    sp.parse_known_args = parse  # type: ignore[method-assign]
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -60,8 +83,12 @@ def register(sub: argparse._SubParsersAction) -> None:
                         "with Spearman rho >= --map-rho and largest difference <= --map-difference of its largest "
                         "value, every check outcome equal.\n"
                         "example: casefile replay cf-1a2b3c4d --model net.pt2 --card card.json scan_0042.dcm")
-    sp.add_argument("case_id", metavar="CASE_ID", nargs="?", help=CASE_ID_HELP + " (with --all: the FOLDER)")
-    sp.add_argument("input", metavar="INPUT", nargs="?", help="the input file the case was recorded from")
+    # CASE_ID comes before the options and INPUT after them: positionals may stand on both sides of options
+    # (argparse's intermixed parsing, which works for a parser without subcommands of its own, as this one)
+    _intermix(sp)
+    sp.add_argument("targets", metavar="CASE_ID INPUT | FOLDER", nargs="+",
+                    help=f"CASE_ID: {CASE_ID_HELP}; INPUT: the file the case was recorded from; with --all, "
+                         "FOLDER: a folder of inputs, matched to cases by SHA-256")
     sp.add_argument("--model", required=True, metavar="FILE", help="the model file, as given to explain")
     sp.add_argument("--card", required=True, metavar="FILE", help="the model card (JSON)")
     sp.add_argument("--all", action="store_true",

@@ -72,13 +72,14 @@ class CaseHistory:
     entry: Entry
     amendments: list[Entry]
     reviews: list[Entry]
+    replays: list[Entry] = field(default_factory=list)
 
     @property
     def case_id(self) -> str:
         return self.entry.body["case_id"]
 
     def timeline(self) -> list[Entry]:
-        return sorted([self.entry, *self.amendments, *self.reviews], key=lambda e: e.seq)
+        return sorted([self.entry, *self.amendments, *self.reviews, *self.replays], key=lambda e: e.seq)
 
 
 CASE_PREFIX_MIN = 8  # characters after "cf-" (or of an id without it) that name a case uniquely enough
@@ -359,7 +360,7 @@ class Store:
         return found[0]
 
     def case(self, case_id: str) -> CaseHistory:
-        """The case entry with its amendments and reviews, in seq order."""
+        """The case entry with its amendments, reviews and replays, in seq order."""
         with self.engine.connect() as conn:
             r = conn.execute(select(t.cases.c.seq).where(t.cases.c.case_id == case_id)).first()
             if r is None:
@@ -370,7 +371,10 @@ class Store:
                 .order_by(t.amendments.c.seq))]
             revs = [x[0] for x in conn.execute(select(t.reviews.c.seq).where(t.reviews.c.case_id == case_id)
                                                .order_by(t.reviews.c.seq))]
-        return CaseHistory(self.get(case_seq), [self.get(s) for s in amend], [self.get(s) for s in revs])
+            reps = [x[0] for x in conn.execute(select(t.replays.c.seq).where(t.replays.c.case_id == case_id)
+                                               .order_by(t.replays.c.seq))]
+        return CaseHistory(self.get(case_seq), [self.get(s) for s in amend], [self.get(s) for s in revs],
+                           [self.get(s) for s in reps])
 
     def cases(self, model: str | None = None, label: str | None = None, status: str | None = None,
               since: str | None = None, until: str | None = None) -> list[dict[str, Any]]:
