@@ -142,7 +142,9 @@ def _key_figures(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[B
 def _volume(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
     unit = fig["period"]["bucket"]
     blocks, said = _opening(fig, fonts, width, "cases", f"Cases per {unit} and model version",
-                            f"cases recorded in each {unit} (UTC), stacked by model name@version")
+                            f"cases recorded in each {unit} (UTC), stacked by model name@version"
+                            + ("; weeks run Monday to Sunday, and a week cut by the period's start or end holds "
+                               "fewer days" if unit == "week" else ""))
     if said:
         return blocks
     by_model = dict(fig["cases"]["by_model"])

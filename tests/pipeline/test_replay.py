@@ -160,3 +160,43 @@ def test_replay_all_over_a_folder(ledger, tiny, tmp_path):
     assert len(batch.missing) == 1
     with pytest.raises(InputError):
         replay_all(ledger, tmp_path / "nowhere", tiny["weights"], tiny["card"], trusted_entry_points=TRUSTED)
+
+
+def _main(ledger, capsys, monkeypatch, *args):
+    from casefile.cli import main
+
+    monkeypatch.setenv("CASEFILE_TRUSTED_ENTRY_POINTS", ENTRY_POINT)
+    code = main(["--store", ledger.path, *args])
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def test_replay_from_the_command_line(ledger, tiny, capsys, monkeypatch):
+    import json
+
+    case_id, name = _cases(ledger)[0]
+    code, out, err = _main(ledger, capsys, monkeypatch, "replay", case_id[:11], "--model", str(tiny["weights"]),
+                           "--card", str(tiny["card"]), str(tiny["inputs"] / name), "--json")
+    assert code == 0, err
+    lines = out.splitlines()
+    assert len(lines) == 1
+    body = json.loads(lines[0])
+    assert body["case_id"] == case_id and body["reproduces"] is True and body["seq"] == ledger.head()[0]
+    code, out, _ = _main(ledger, capsys, monkeypatch, "replay", case_id, "--model", str(tiny["weights"]),
+                         "--card", str(tiny["card"]), str(tiny["inputs"] / name))
+    assert code == 0 and out.startswith(f"{case_id}: reproduces (replay recorded as seq ")
+
+
+@pytest.mark.parametrize("args, said", [
+    (("--since", "2026-01-01"), "--since and --until go with --all"),
+    (("--confidence-tolerance", "-1"), "must be a finite number of at least 0"),
+    (("--map-rho", "2"), "must lie between 0 and 1"),
+])
+def test_replay_usage_errors_exit_2_and_write_nothing(ledger, tiny, capsys, monkeypatch, args, said):
+    case_id, name = _cases(ledger)[0]
+    head = ledger.head()
+    with pytest.raises(SystemExit) as info:
+        _main(ledger, capsys, monkeypatch, "replay", case_id, "--model", str(tiny["weights"]), "--card",
+              str(tiny["card"]), str(tiny["inputs"] / name), *args)
+    assert info.value.code == 2 and said in capsys.readouterr().err
+    assert ledger.head() == head

@@ -171,3 +171,24 @@ def test_failed_attempts_by_reason_equal_raw_rows(fig, raw):
 def test_verification_names_the_ledger_head(fig, raw):
     seq, digest = raw.execute("SELECT seq, hash FROM entries ORDER BY seq DESC LIMIT 1").fetchone()
     assert fig["ledger"] == {"head_seq": seq, "head_hash": digest}
+
+
+def test_a_long_period_is_counted_by_iso_week(scenario, raw):
+    """Weeks run Monday to Sunday (ISO 8601 week, section 2.2.10): counts per week from raw rows."""
+    from datetime import date, timedelta
+
+    from casefile.ledger import Ledger
+
+    with Ledger(scenario) as led:
+        fig = period_figures(led, "2026-09-01", "2026-10-30")  # 60 days: still by day
+        assert fig["period"]["bucket"] == "day"
+        fig = period_figures(led, "2026-08-20", "2026-10-30")  # 72 days: by week
+    assert fig["period"]["bucket"] == "week"
+    want = Counter()
+    for (day,) in raw.execute("SELECT substr(recorded_at, 1, 10) FROM cases WHERE recorded_at BETWEEN ? AND ?",
+                              ("2026-08-20T00:00:00Z", "2026-10-30T23:59:59Z")):
+        d = date.fromisoformat(day)
+        want[(d - timedelta(days=d.isoweekday() - 1)).isoformat()] += 1
+    got = {b: n for b, n in zip(fig["buckets"], fig["cases"]["per_bucket"], strict=True) if n}
+    assert got == dict(want)
+    assert all(date.fromisoformat(b).isoweekday() == 1 for b in fig["buckets"])
