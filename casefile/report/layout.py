@@ -350,10 +350,14 @@ def _verification(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[
     lines = [f"Computed from ledger entries 1 to {led['head_seq']}; head entry hash:",
              led["head_hash"],
              "To check that nothing was added or changed since: `casefile verify` must succeed and name this "
-             "head seq and hash (a ledger that grew since shows a higher seq; rerun the report on it to compare)."]
+             "head seq and hash (it prints the hash's first 16 digits, `--json` all of them); a ledger that grew "
+             "since shows a higher seq, and the report run again on it shows what changed."]
     blocks = [_heading(fonts, "Verification", "what this report was computed from", width)]
-    blocks.append(_para(fonts, lines[0], width))
-    blocks.append(Block(14, lambda c, x, y: text_line(c, x, y - 10, led["head_hash"], fonts.mono, 8.5)))
+    first = _para(fonts, lines[0], width)
+    first.keep_with_next = True  # the block stays on one page: the hash never starts a page of its own
+    blocks.append(first)
+    blocks.append(Block(14, lambda c, x, y: text_line(c, x, y - 10, led["head_hash"], fonts.mono, 8.5),
+                        keep_with_next=True))
     blocks.append(_para(fonts, lines[2], width, size=7.5))
     return blocks
 

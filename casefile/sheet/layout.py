@@ -172,6 +172,11 @@ def _amendment_blocks(amendments: Sequence[dict], fonts: FontSet, width: float) 
     return blocks, table
 
 
+def _threads(software: dict) -> str:
+    n = str(software.get("torch_threads", "?"))
+    return f"{n} thread" if n == "1" else f"{n} threads"
+
+
 def _replay_blocks(replay: dict | None, fonts: FontSet, width: float) -> list[Block]:
     """The latest replay of the case (casefile replay): when, whether it reproduced, what differed."""
     if not replay:
@@ -184,8 +189,8 @@ def _replay_blocks(replay: dict | None, fonts: FontSet, width: float) -> list[Bl
     sw, was = replay.get("software") or {}, replay.get("recorded_software") or {}
     said = (f"seq {replay.get('seq', '?')}, {_fmt_short(replay.get('replayed_at'))} UTC: "
             + ("reproduces" if ok else "does not reproduce")
-            + f" (torch {sw.get('torch', '?')} with {sw.get('torch_threads', '?')} threads; recorded with torch "
-              f"{was.get('torch', '?')}, {was.get('torch_threads', '?')} threads)")
+            + f" (torch {sw.get('torch', '?')}, {_threads(sw)}; recorded with torch {was.get('torch', '?')}, "
+              f"{_threads(was)})")
     lines = [said, *(f"– {d}" for d in (replay.get("differences") or [])[:8])]
     blocks = [_heading(fonts, "Latest replay", note, width)]
     for i, line in enumerate(lines):

@@ -66,3 +66,13 @@ def test_a_missing_folder_is_one_line(scenario, capsys, tmp_path):
                           str(tmp_path / "nowhere" / "r.pdf"))
     assert code == 1 and out == ""
     assert err.count("\n") == 1 and "nowhere/r.pdf: the folder does not exist" in err
+
+
+def test_verify_names_the_head_the_report_was_computed_from(scenario, capsys):
+    code, out, _ = _cli(scenario, capsys, "report", "--since", PERIOD[0], "--until", PERIOD[1], "--json")
+    assert code == 0
+    fig = json.loads(out)
+    code, out, _ = _cli(scenario, capsys, "verify", "--json")
+    checked = json.loads(out)
+    assert code == 0 and checked["ok"] is True
+    assert (checked["head_seq"], checked["head_hash"]) == (fig["ledger"]["head_seq"], fig["ledger"]["head_hash"])
