@@ -192,3 +192,18 @@ def test_a_long_period_is_counted_by_iso_week(scenario, raw):
     got = {b: n for b, n in zip(fig["buckets"], fig["cases"]["per_bucket"], strict=True) if n}
     assert got == dict(want)
     assert all(date.fromisoformat(b).isoweekday() == 1 for b in fig["buckets"])
+
+
+def test_over_the_whole_ledger_the_draw_figures_equal_casefile_stats(scenario):
+    """The same readings rules as `casefile stats` (checked against scipy and statsmodels in tests/review)."""
+    from casefile.ledger import Ledger
+    from casefile.review import summarise
+
+    with Ledger(scenario) as led:
+        fig = period_figures(led, "2026-01-01", "2026-12-31")
+        stats_ = summarise(led)
+    mine = {d["draw_id"]: (d["disagreements"], d["reviewed"], d["wilson_95"]) for d in fig["reads"]["draws"]}
+    theirs = {d["draw_id"]: (d["disagreements"], d["reviewed"], d["wilson_95"]) for d in stats_["draws"]}
+    assert mine == theirs
+    assert fig["reads"]["reliability"]["ece"] == pytest.approx(stats_["reliability"]["ece"], abs=1e-12)
+    assert fig["reads"]["confusion"]["rows"] == stats_["agreement"]["confusion"]["rows"]
