@@ -67,6 +67,29 @@ def _opening(fig: Mapping[str, Any], fonts: FontSet, width: float, key: str, tit
     return ([*blocks, _para(fonts, said, width)], True) if said else (blocks, False)
 
 
+Text = str | Callable[[Mapping[str, Any]], str]
+Section = Callable[[Mapping[str, Any], FontSet, float], list[Block]]
+
+
+def _guarded(key: str, title: Text, note: Text) -> Callable[[Section], Section]:
+    """A section that opens with its heading and, when the figures say why it has nothing to show, ends
+    with that sentence instead of its body."""
+
+    def wrap(body: Section) -> Section:
+        def section(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
+            head = [title(fig) if callable(title) else title, note(fig) if callable(note) else note]
+            blocks, said = _opening(fig, fonts, width, key, *head)
+            return blocks if said else [*blocks, *body(fig, fonts, width)]
+
+        return section
+
+    return wrap
+
+
+def _unit(fig: Mapping[str, Any]) -> str:
+    return str(fig["period"]["bucket"])
+
+
 def _para(fonts: FontSet, text: str, width: float, *, bold: bool = False, size: float = 8.0) -> Block:
     font = fonts.bold if bold else fonts.regular
     lines = wrap(clean(text, font), font, size, width)
@@ -139,14 +162,12 @@ def _key_figures(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[B
             *blocks]
 
 
+@_guarded("cases", lambda f: f"Cases per {_unit(f)} and model version",
+          lambda f: f"cases recorded in each {_unit(f)} (UTC), stacked by model name@version" + (
+              "; weeks run Monday to Sunday, and a week cut by the period's start or end holds fewer days"
+              if _unit(f) == "week" else ""))
 def _volume(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
-    unit = fig["period"]["bucket"]
-    blocks, said = _opening(fig, fonts, width, "cases", f"Cases per {unit} and model version",
-                            f"cases recorded in each {unit} (UTC), stacked by model name@version"
-                            + ("; weeks run Monday to Sunday, and a week cut by the period's start or end holds "
-                               "fewer days" if unit == "week" else ""))
-    if said:
-        return blocks
+    unit = _unit(fig)
     by_model = dict(fig["cases"]["by_model"])
     if len(by_model) > MAX_VERSIONS:
         names = sorted(by_model, key=lambda m: -sum(by_model[m]))
@@ -155,7 +176,7 @@ def _volume(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]
         by_model = {**{m: by_model[m] for m in keep}, f"{len(rest)} other versions": other}
     d = charts.stacked_bars(_bucket_labels(fig), by_model, fonts, width=width, height=CHART_H,
                             x_label=_x_title(fig), y_label=f"cases per {unit}")
-    return [*blocks, _chart(d)]
+    return [_chart(d)]
 
 
 def _bucket_labels(fig: Mapping[str, Any]) -> list[str]:
@@ -169,13 +190,11 @@ def _x_title(fig: Mapping[str, Any]) -> str:
             else f"week recorded (UTC), its Monday as month-day, {span}")
 
 
+@_guarded("status", lambda f: f"Status and flags per {_unit(f)}",
+          "status is the worst check outcome of a case; a flag sends the case to a person")
 def _status(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
-    unit = fig["period"]["bucket"]
+    unit = _unit(fig)
     st = fig["status"]
-    blocks, said = _opening(fig, fonts, width, "status", f"Status and flags per {unit}",
-                            "status is the worst check outcome of a case; a flag sends the case to a person")
-    if said:
-        return blocks
     series = {"warn": st["by_bucket"].get("warn", []), "fail": st["by_bucket"].get("fail", []),
               "flagged": st["flagged_by_bucket"]}
     over_time: list[Block] = [_para(fonts, fig["sentences"]["thin"], width)] if "thin" in fig["sentences"] else [
@@ -186,19 +205,17 @@ def _status(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]
     rows.append(["flagged", f"{st['flagged']:,}", pct(st["flagged_share"])])
     _, table = _table(fonts, [Column("STATUS", 90, "bold"), Column(f"CASES (OF {total:,})", 90, "mono", "right"),
                               Column("SHARE", 70, "mono", "right")], rows)
-    return [*blocks, *over_time, *table]
+    return [*over_time, *table]
 
 
+@_guarded("checks", "Check outcomes",
+          lambda f: f"per check, the share of cases where it warned or failed, per {_unit(f)}; the table gives "
+                    "every outcome over the whole period")
 def _checks(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
-    unit = fig["period"]["bucket"]
+    unit = _unit(fig)
     ch = fig["checks"]
-    blocks, said = _opening(fig, fonts, width, "checks", "Check outcomes",
-                            f"per check, the share of cases where it warned or failed, per {unit}; the table gives "
-                            "every outcome over the whole period")
-    if said:
-        return blocks
     series = {n: ch["not_passed_by_bucket"][n] for n in ch["names"]}
-    out = list(blocks)
+    out: list[Block] = []
     if "thin" in fig["sentences"]:
         out.append(_para(fonts, fig["sentences"]["thin"], width))
     elif any(nonempty(v) for v in series.values()):
@@ -249,15 +266,13 @@ def _confidence(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Bl
     return out
 
 
+@_guarded("reads", "Second reads: disagreement per draw",
+          "readings of this period's cases recorded up to the ledger head; a case counts as a disagreement "
+          "when any reader disagreed; 95 % Wilson score intervals")
 def _reads(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
     reads = fig["reads"]
-    blocks, said = _opening(fig, fonts, width, "reads", "Second reads: disagreement per draw",
-                            "readings of this period's cases recorded up to the ledger head; a case counts as a "
-                            "disagreement when any reader disagreed; 95 % Wilson score intervals")
-    if said:
-        return blocks
     ov = reads["overall"]
-    out = [*blocks]
+    out: list[Block] = []
     rows = [(f"{d['draw_id']} ({d['plan']}, n = {d['reviewed']})", d["rate"], *d["wilson_95"])
             for d in reads["draws"] if d["reviewed"]]
     if ov["reviewed"]:
@@ -321,13 +336,11 @@ def _reliability(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[B
     return [*blocks, _chart(d), _para(fonts, ece, width)]
 
 
+@_guarded("failures", "Failed attempts by reason",
+          "inputs that could not be recorded as cases, every model (the file name is left out of the reason "
+          "so that the same problem counts once)")
 def _failures(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
     fails = fig["failures"]
-    blocks, said = _opening(fig, fonts, width, "failures", "Failed attempts by reason",
-                            "inputs that could not be recorded as cases, every model (the file name is left out of "
-                            "the reason so that the same problem counts once)")
-    if said:
-        return blocks
     bar_w = 90.0
 
     def bar(c: Canvas, x: float, y: float, w: float, share: str) -> None:
@@ -342,7 +355,7 @@ def _failures(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Bloc
         rows.append([f"{o['reasons']} other reasons", f"{o['n']:,}", pct(o["n"] / fails["total"]),
                      f"{o['n'] / fails['total']:.4f}"])
     total = [_para(fonts, f"{fails['total']:,} failed attempts, {fails['reasons']} different reasons.", width)]
-    return [*blocks, *total, *_table(fonts, cols, rows, {3: bar})[1]]
+    return [*total, *_table(fonts, cols, rows, {3: bar})[1]]
 
 
 def _verification(fig: Mapping[str, Any], fonts: FontSet, width: float) -> list[Block]:
