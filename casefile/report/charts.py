@@ -268,24 +268,22 @@ def intervals(rows: Sequence[tuple[str, float, float, float]], fonts: FontSet, *
     top = min(1.0, nice_ceiling(peak * 1.05) if peak > 0 else 0.1)
     for k in range(6):
         f = k / 5
-        x = box.px(f)
-        g.add(Line(x, box.y, x, box.y + box.h, strokeColor=GRID, strokeWidth=0.4))
-        _text(g, x, box.y - 9, f"{top * f * 100:.0f}", fonts.regular, 6.5, "middle")
+        _text(g, box.px(f), box.y - 9, f"{top * f * 100:.0f}", fonts.regular, 6.5, "middle")
     g.add(Line(box.x, box.y, box.x + box.w, box.y, strokeColor=AXIS, strokeWidth=0.8))
     _text(g, box.px(0.5), box.y - 20, x_label, fonts.regular, 7, "middle")
+    for i in range(0, len(rows), 2):  # banded rows first, then the grid over them, then the intervals
+        y = box.y + box.h - row_h * (i + 0.5)
+        g.add(Rect(0, y - row_h / 2, width, row_h, fillColor=SOFT, strokeColor=None))
+    for k in range(6):
+        x = box.px(k / 5)
+        g.add(Line(x, box.y, x, box.y + box.h, strokeColor=GRID, strokeWidth=0.4))
     for i, (name, rate, lo, hi) in enumerate(rows):
         y = box.y + box.h - row_h * (i + 0.5)
-        if i % 2 == 0:
-            g.add(Rect(0, y - row_h / 2, width, row_h, fillColor=SOFT, strokeColor=None))
         _text(g, 4, y - 2.4, name, fonts.regular, 6.8)
         g.add(Line(box.px(lo / top), y, box.px(hi / top), y, strokeColor=AXIS, strokeWidth=1.4))
         for v in (lo, hi):
             g.add(Line(box.px(v / top), y - 3, box.px(v / top), y + 3, strokeColor=AXIS, strokeWidth=1.0))
         _marker(g, "circle", box.px(rate / top), y, AXIS, r=2.6)
-    # the rows sit above the grid lines; draw the grid again over the bands
-    for k in range(6):
-        x = box.px(k / 5)
-        g.add(Line(x, box.y, x, box.y + box.h, strokeColor=GRID, strokeWidth=0.3))
     return d
 
 
