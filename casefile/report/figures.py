@@ -26,9 +26,8 @@ from sqlalchemy.sql.elements import ColumnElement
 
 from casefile.cautions import REPORT_CAUTIONS
 from casefile.errors import UsageError
-from casefile.ledger import Ledger
+from casefile.ledger import Ledger, model_condition
 from casefile.ledger import tables as t
-from casefile.ledger.store import model_condition
 from casefile.review.agreement import confusion_table, wilson_interval
 from casefile.review.calibration import reading_points, reliability
 from casefile.review.readings import current_readings, for_draw, latest_by_reader, reader_label
