@@ -166,7 +166,8 @@ def _case_history_row(b: dict[str, Any]) -> dict[str, Any]:
 
 
 def history(ledger: Ledger, case_id: str) -> list[dict[str, Any]]:
-    """Everything recorded about one case, in ledger order: the case, its amendments, reviews, adjudications."""
+    """Everything recorded about one case, in ledger order: the case, its amendments, reviews, adjudications,
+    replays."""
     hist = ledger.case(case_id)
     entries = [*hist.timeline(), *(ledger.get(int(r["seq"])) for r in ledger.rows("adjudications")
                                   if r["case_id"] == case_id)]
@@ -182,6 +183,8 @@ def history(ledger: Ledger, case_id: str) -> list[dict[str, Any]]:
         elif e.kind == "adjudication":
             row.update({k: b.get(k) for k in ("adjudicated_at", "adjudicator", "label", "reason", "readings",
                                                "draw_id")})
+        elif e.kind == "replay":
+            row.update(replayed_at=b["replayed_at"], reproduces=b["reproduces"], differences=b["differences"])
         else:
             row.update({k: b.get(k) for k in ("reviewed_at", "reader", "verdict", "label", "note", "amends_seq",
                                                "draw_id")})
@@ -204,6 +207,9 @@ def format_history(rows: list[dict[str, Any]]) -> str:
         elif r["kind"] == "adjudication":
             lines.append(f"seq {r['seq']:>6}  adjudicated {r['adjudicated_at']}  by {r['adjudicator']}: {r['label']}"
                          f"{new} ({r['reason']}; readings {', '.join(map(str, r['readings']))})")
+        elif r["kind"] == "replay":
+            said = "reproduces" if r["reproduces"] else f"does not reproduce: {'; '.join(r['differences'])}"
+            lines.append(f"seq {r['seq']:>6}  replay     {r['replayed_at']}  {said}")
         else:
             extra = f" label {r['label']}{new}" if r.get("label") else ""
             draw = f" for draw {r['draw_id']}" if r.get("draw_id") else ""

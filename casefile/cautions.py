@@ -38,3 +38,15 @@ WEIGHTS_PINNED = "weights match the card's SHA-256"
 # The review page (casefile serve): the same cautions, said of a page rather than a sheet.
 CAUTION_PAGE_NOT_VERDICT = "This page is not a diagnosis and not an inspection verdict."
 PAGE_CAUTIONS: tuple[str, ...] = (CAUTION_INFLUENCE, CAUTION_PAGE_NOT_VERDICT, CAUTION_DECISIONS, CAUTION_CHECKS)
+
+# The period report (casefile report): on every page of its PDF and in its JSON.
+REPORT_CAUTION_TITLE = "Read before use"
+REPORT_CAUTIONS: tuple[str, ...] = (
+    "This report describes how the model and its explanation checks behaved over a period; "
+    "it does not show whether any single output was right.",
+    "Reader agreement is agreement with second readers, not accuracy; a reader can be wrong too.",
+    "A drift signal says the confidence distribution changed between two periods, not why, and not "
+    "that the change matters; a quiet signal does not prove that nothing changed.",
+    "This report is not a diagnosis and not an inspection verdict. Decisions rest with qualified staff, "
+    "under local clinical, regulatory and inspection practice.",
+)

@@ -34,6 +34,7 @@ from casefile.software import software_versions
 if TYPE_CHECKING:  # types only; the heavy rooms are imported where they are first needed
     import numpy as np
 
+    from casefile.explain import Explanation
     from casefile.imaging import Scan
     from casefile.models import LoadedModel
 
@@ -141,7 +142,7 @@ def _display_and_overlays(scan: Scan, maps: dict[str, np.ndarray]) -> tuple[byte
 
 WITHHELD = "(name withheld)"
 __all__ = ["DEFAULT_METHODS", "NAME_POLICIES", "BatchSummary", "NamePolicy", "Outcome", "RunSettings",
-           "check_inputs", "check_occlusion_grid", "digest_name", "explain_batch", "explain_one", "explain_scan",
+           "check_inputs", "check_occlusion_grid", "digest_name", "explain_batch", "explanation_for", "explain_one", "explain_scan",
            "preflight", "record_case", "record_failure", "say", "write_sheet"]
 
 
@@ -181,15 +182,21 @@ def record_failure(ledger: Ledger, path: str | os.PathLike[str], reason: str, *,
     return Outcome(str(path), "failed", seq=entry.seq, hash=entry.hash, reason=reason)
 
 
-def explain_scan(scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *, target: int | None = None,
-                 source: str = "casefile") -> CaseRecord:
-    """Run the model and the explanation methods on one scan and build its case record (no ledger)."""
+def explanation_for(scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *,
+                    target: int | None = None) -> Explanation:
+    """The model's output, maps and checks for one scan under ``settings`` (resolved, as stored in a case)."""
     from casefile import explain
 
     x = loaded.preprocess(scan)
     roi = loaded.roi_mask(int(x.shape[2]), int(x.shape[3]))
-    exp = explain.run(loaded.module, x, target=target, labels=loaded.labels, layer=settings["layer"],
-                      methods=settings["methods"], settings=settings["explain"], roi=roi)
+    return explain.run(loaded.module, x, target=target, labels=loaded.labels, layer=settings["layer"],
+                       methods=settings["methods"], settings=settings["explain"], roi=roi)
+
+
+def explain_scan(scan: Scan, loaded: LoadedModel, settings: dict[str, Any], *, target: int | None = None,
+                 source: str = "casefile") -> CaseRecord:
+    """Run the model and the explanation methods on one scan and build its case record (no ledger)."""
+    exp = explanation_for(scan, loaded, settings, target=target)
     display, overlays = _display_and_overlays(scan, exp.maps)
     return build(scan, loaded, exp, settings=settings, recorded_at=utc_now(), display_png=display,
                  overlays=overlays, source=source)

@@ -14,11 +14,20 @@ import traceback
 from collections.abc import Sequence
 
 from casefile import __version__
-from casefile.cli import audit_cmds, card_cmds, case_cmds, ledger_cmds, review_cmds, server_cmds
+from casefile.cli import (
+    audit_cmds,
+    card_cmds,
+    case_cmds,
+    ledger_cmds,
+    replay_cmds,
+    report_cmds,
+    review_cmds,
+    server_cmds,
+)
 from casefile.cli.common import STORE_HELP, err, resolve_case_ids
 from casefile.errors import CasefileError, UsageError, one_line
 
-GROUPS = (ledger_cmds, case_cmds, card_cmds, audit_cmds, review_cmds, server_cmds)
+GROUPS = (ledger_cmds, case_cmds, card_cmds, audit_cmds, review_cmds, server_cmds, report_cmds, replay_cmds)
 DEBUG_ENV = "CASEFILE_DEBUG"
 
 

@@ -16,10 +16,10 @@ from casefile.ledger.sealfile import (
            seal_file_bytes,
            write_seal_file,
 )
-from casefile.ledger.store import CaseHistory, Entry, Store, entry_hash, utc_now
+from casefile.ledger.store import CaseHistory, Entry, Store, entry_hash, model_condition, utc_now
 from casefile.ledger.trust import SealTrust, TrustedKeys
 
 __all__ = ["CaseHistory", "Claims", "CopyReport", "Entry", "ExternalSeal", "KeySource", "Ledger", "SealFile", "SealSource", "SealTrust",
-           "Store", "TrustedKeys", "VerifyReport", "copy_ledger", "entry_hash", "generate_key", "load_private_key",
+           "Store", "TrustedKeys", "VerifyReport", "copy_ledger", "entry_hash", "generate_key", "load_private_key", "model_condition",
            "load_public_key", "parse_seal_file", "read_seal_file", "seal_file_bytes", "utc_now",
            "write_seal_file"]

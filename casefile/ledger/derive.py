@@ -74,6 +74,11 @@ def _seal(seq: int, b: dict[str, Any]) -> Rows:
                        "signed": 1 if "signature" in b else 0})]
 
 
+def _replay(seq: int, b: dict[str, Any]) -> Rows:
+    return [("replays", {"seq": seq, "case_id": b["case_id"], "case_seq": b["case_seq"],
+                         "reproduces": 1 if b["reproduces"] else 0})]
+
+
 PROJECTORS: dict[str, Callable[[int, dict[str, Any]], Rows]] = {
     "case": _case,
     "failed": _failed,
@@ -82,6 +87,7 @@ PROJECTORS: dict[str, Callable[[int, dict[str, Any]], Rows]] = {
     "adjudication": _adjudication,
     "draw": _draw,
     "seal": _seal,
+    "replay": _replay,
 }
 
 

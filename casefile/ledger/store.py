@@ -18,6 +18,7 @@ from typing import Any, Self, TypeVar
 from sqlalchemy import func, select
 from sqlalchemy.engine import Connection
 from sqlalchemy.exc import DatabaseError, IntegrityError
+from sqlalchemy.sql.elements import ColumnElement
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
@@ -71,13 +72,14 @@ class CaseHistory:
     entry: Entry
     amendments: list[Entry]
     reviews: list[Entry]
+    replays: list[Entry] = field(default_factory=list)
 
     @property
     def case_id(self) -> str:
         return self.entry.body["case_id"]
 
     def timeline(self) -> list[Entry]:
-        return sorted([self.entry, *self.amendments, *self.reviews], key=lambda e: e.seq)
+        return sorted([self.entry, *self.amendments, *self.reviews, *self.replays], key=lambda e: e.seq)
 
 
 CASE_PREFIX_MIN = 8  # characters after "cf-" (or of an id without it) that name a case uniquely enough
@@ -373,7 +375,7 @@ class Store:
         return found[0]
 
     def case(self, case_id: str) -> CaseHistory:
-        """The case entry with its amendments and reviews, in seq order."""
+        """The case entry with its amendments, reviews and replays, in seq order."""
         with self.engine.connect() as conn:
             r = conn.execute(select(t.cases.c.seq).where(t.cases.c.case_id == case_id)).first()
             if r is None:
@@ -384,7 +386,10 @@ class Store:
                 .order_by(t.amendments.c.seq))]
             revs = [x[0] for x in conn.execute(select(t.reviews.c.seq).where(t.reviews.c.case_id == case_id)
                                                .order_by(t.reviews.c.seq))]
-        return CaseHistory(self.get(case_seq), [self.get(s) for s in amend], [self.get(s) for s in revs])
+            reps = [x[0] for x in conn.execute(select(t.replays.c.seq).where(t.replays.c.case_id == case_id)
+                                               .order_by(t.replays.c.seq))]
+        return CaseHistory(self.get(case_seq), [self.get(s) for s in amend], [self.get(s) for s in revs],
+                           [self.get(s) for s in reps])
 
     def cases(self, model: str | None = None, label: str | None = None, status: str | None = None,
               since: str | None = None, until: str | None = None) -> list[dict[str, Any]]:
@@ -392,11 +397,7 @@ class Store:
         c = t.cases.c
         q = select(t.cases).order_by(c.seq)
         if model:
-            name, _, version = model.partition("@")
-            cond = (c.model_name == name) if not version else ((c.model_name == name) & (c.model_version == version))
-            if len(model) >= 8 and all(ch in "0123456789abcdef" for ch in model):
-                cond = cond | c.model_digest.startswith(model)
-            q = q.where(cond)
+            q = q.where(model_condition(model))
         if label:
             q = q.where(c.label == label)
         if status:
@@ -421,6 +422,17 @@ def _first_line(exc: DatabaseError) -> str:
     """The database's own message, first line only (PostgreSQL adds CONTEXT lines after it)."""
     text = str(exc.orig if exc.orig is not None else exc).strip()
     return text.splitlines()[0] if text else type(exc).__name__
+
+
+def model_condition(model: str) -> ColumnElement[bool]:
+    """The SQL condition on the cases table for ``model``: a name, name@version, or digest prefix
+    (8+ lowercase hex digits)."""
+    c = t.cases.c
+    name, _, version = model.partition("@")
+    cond = (c.model_name == name) if not version else ((c.model_name == name) & (c.model_version == version))
+    if len(model) >= 8 and all(ch in "0123456789abcdef" for ch in model):
+        cond = cond | c.model_digest.startswith(model)
+    return cond
 
 
 _HEX64 = re.compile(r"^[0-9a-f]{64}$")

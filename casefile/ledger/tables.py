@@ -161,7 +161,19 @@ claims = Table(
     Index("ix_claims_open", "done", "position"),
 )
 
-DERIVED_TABLES = (entry_blobs, cases, case_checks, failures, amendments, reviews, adjudications, draws, seals)
+# A recorded case computed again (casefile replay): whether it reproduced; the latest per case is shown.
+replays = Table(
+    "replays",
+    metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("case_id", String(64), nullable=False),
+    Column("case_seq", Integer, nullable=False),
+    Column("reproduces", Integer, nullable=False),
+    Index("ix_replays_case", "case_id"),
+)
+
+DERIVED_TABLES = (entry_blobs, cases, case_checks, failures, amendments, reviews, adjudications, draws, seals,
+                  replays)
 
 # Append-only, enforced by SQLite itself: an UPDATE or DELETE on entries or blobs aborts, and an
 # INSERT must extend the chain at its head (next seq, prev_hash = hash of the head entry).

@@ -18,7 +18,7 @@ from casefile.ledger.engines import recorded_version
 from casefile.ledger.store import Entry, Store, utc_now
 
 # Entry kinds each version added (the kinds a version's readers may meet for the first time).
-KINDS_ADDED = {2: ["upgrade", "reader", "sign_in_failed"]}
+KINDS_ADDED = {2: ["upgrade", "reader", "sign_in_failed", "replay"]}
 # Columns that no upgrade can add: without them the entries or blobs are not what this release reads.
 _CORE = {"entries": {"seq", "kind", "body", "prev_hash", "hash"}, "blobs": {"digest", "size", "data"}}
 

@@ -24,9 +24,10 @@ def case_inputs(ledger: Any, case_id: str) -> dict[str, Any]:
     def bodies(entries: Any) -> list[dict[str, Any]]:
         return [{**e.body, "seq": e.seq} if hasattr(e, "body") else dict(e) for e in entries or []]
 
+    replays = bodies(getattr(history, "replays", None))
     return {"case": history.entry.body, "blob": ledger.blob, "reviews": bodies(getattr(history, "reviews", None)),
             "amendments": bodies(getattr(history, "amendments", None)), "as_of_seq": int(seq),
-            "entry_hash": history.entry.hash}
+            "entry_hash": history.entry.hash, "replay": replays[-1] if replays else None}
 
 
 def sheet_for_case(ledger: Any, case_id: str, **opts: Any) -> bytes:

@@ -6,6 +6,8 @@ the last thing on that page. The page flow reserves its height on every page, so
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from reportlab.pdfgen.canvas import Canvas
 
 from casefile.cautions import CAUTION_TITLE, CAUTIONS
@@ -18,10 +20,12 @@ SIZE = 7.5
 TOP_GAP = 6.0  # points between what comes before and the box
 
 
-def caution_block(fonts: FontSet, width: float) -> Block:
-    """The boxed caution sentences, with a heavy top rule, as one block ``width`` points wide."""
+def caution_block(fonts: FontSet, width: float, sentences: Sequence[str] = CAUTIONS,
+                  title: str = CAUTION_TITLE) -> Block:
+    """The boxed caution sentences, with a heavy top rule, as one block ``width`` points wide (the case
+    sheet's sentences unless others are given, e.g. the period report's)."""
     lines: list[str] = []
-    for sentence in CAUTIONS:
+    for sentence in sentences:
         lines.extend(wrap(clean(sentence, fonts.regular), fonts.regular, SIZE, width - 20))
     box_h = 20 + LEADING * len(lines)
 
@@ -33,7 +37,7 @@ def caution_block(fonts: FontSet, width: float) -> Block:
         c.rect(x, y0, width, box_h, stroke=1, fill=1)
         c.setFillColorRGB(*INK)
         c.rect(x, y0 + box_h - 3, width, 3, stroke=0, fill=1)
-        text_line(c, x + 10, y0 + box_h - 14, CAUTION_TITLE, fonts.bold, 8.5)
+        text_line(c, x + 10, y0 + box_h - 14, title, fonts.bold, 8.5)
         yy = y0 + box_h - 24
         for line in lines:
             text_line(c, x + 10, yy, line, fonts.regular, SIZE)

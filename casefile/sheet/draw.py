@@ -118,6 +118,7 @@ class Table:
     leading: float = 8.8
     pad: float = 2.6
     special: dict[int, Callable[[Canvas, float, float, float, str], None]] = field(default_factory=dict)
+    align_headers: bool = False  # right-aligned columns get right-aligned titles too (the period report)
 
     def _cell_lines(self, text: str, col: Column) -> list[str]:
         font = getattr(self.fonts, col.font)
@@ -134,7 +135,10 @@ class Table:
             c.setFont(self.fonts.bold, self.size - 0.5)
             cx = x
             for col in self.columns:
-                c.drawString(cx + self.pad, y - self.pad - self.size + 0.5, col.title)
+                if self.align_headers and col.align == "right":
+                    c.drawRightString(cx + col.width - self.pad, y - self.pad - self.size + 0.5, col.title)
+                else:
+                    c.drawString(cx + self.pad, y - self.pad - self.size + 0.5, col.title)
                 cx += col.width
 
         return Block(h, draw, keep_with_next=True)

@@ -172,6 +172,38 @@ def _amendment_blocks(amendments: Sequence[dict], fonts: FontSet, width: float) 
     return blocks, table
 
 
+def _threads(software: dict) -> str:
+    n = str(software.get("torch_threads", "?"))
+    return f"{n} thread" if n == "1" else f"{n} threads"
+
+
+def _replay_blocks(replay: dict | None, fonts: FontSet, width: float) -> list[Block]:
+    """The latest replay of the case (casefile replay): when, whether it reproduced, what differed."""
+    if not replay:
+        return []
+    ok = bool(replay.get("reproduces"))
+    tol = replay.get("tolerances") or {}
+    note = (f"computed again from the same input and model with the recorded settings; reproduces = same label, "
+            f"confidence within {tol.get('confidence_abs', '?')}, maps with Spearman rho at least "
+            f"{tol.get('map_spearman_min', '?')}, same check outcomes")
+    sw, was = replay.get("software") or {}, replay.get("recorded_software") or {}
+    said = (f"seq {replay.get('seq', '?')}, {_fmt_short(replay.get('replayed_at'))} UTC: "
+            + ("reproduces" if ok else "does not reproduce")
+            + f" (torch {sw.get('torch', '?')}, {_threads(sw)}; recorded with torch {was.get('torch', '?')}, "
+              f"{_threads(was)})")
+    lines = [said, *(f"– {d}" for d in (replay.get("differences") or [])[:8])]
+    blocks = [_heading(fonts, "Latest replay", note, width)]
+    for i, line in enumerate(lines):
+        text = wrap(clean(line, fonts.regular), fonts.bold if i == 0 else fonts.regular, 7.5, width)
+
+        def draw(c: Canvas, x: float, y: float, text: list[str] = text, bold: bool = i == 0) -> None:
+            for k, part in enumerate(text):
+                text_line(c, x, y - 9 - 8.8 * k, part, fonts.bold if bold else fonts.regular, 7.5)
+
+        blocks.append(Block(3 + 8.8 * len(text), draw))
+    return blocks
+
+
 def _draw_frame(c: Canvas, fonts: FontSet, case: dict, entry_hash: str, page: int, pages: int,
                 size: tuple[float, float]) -> None:
     """Footer and (after page 1) the running head: on every page (the caution box is in the flow)."""
@@ -198,6 +230,7 @@ def render_sheet(
     amendments: Sequence[dict] = (),
     as_of_seq: int,
     entry_hash: str,
+    replay: dict | None = None,
     page_size: str = "A4",
     fixed_time: datetime | str | None = None,
 ) -> bytes:
@@ -206,6 +239,7 @@ def render_sheet(
     The only declared time stamps are the PDF CreationDate and ModDate: ``fixed_time`` when given,
     else the case's ``recorded_at``. ``blob(digest)`` returns blob bytes (``Ledger.blob``).
     ``reviews`` and ``amendments`` are entry bodies; a ``seq`` key in each, when present, is printed.
+    ``replay`` is the body of the case's latest ``replay`` entry (with its ``seq``), or None.
     """
     if page_size not in PAGE_SIZES:
         raise InputError(f"sheet: page size {page_size!r} is not one of {', '.join(PAGE_SIZES)}")
@@ -223,11 +257,14 @@ def render_sheet(
     head = [title_block(case, fonts, inner), identity_result(case, fonts, inner, amendments),
             *picture_blocks(case, blob, fonts, inner)]
     gap = Block(GAP, lambda c, x, y: None)
-    blocks = [*head, *check_blocks, gap, *review_blocks, *([gap, *amend_blocks] if amend_blocks else [])]
+    replay_blocks = _replay_blocks(replay, fonts, inner)
+    blocks = [*head, *check_blocks, gap, *review_blocks, *([gap, *amend_blocks] if amend_blocks else []),
+              *([gap, *replay_blocks] if replay_blocks else [])]
     check_rows = range(len(head) + 2, len(head) + len(check_blocks))
     first_review = len(head) + len(check_blocks) + 1
     review_rows = range(first_review + 2, first_review + len(review_blocks)) if reviews else range(0)
-    amend_rows = range(len(blocks) - len(amend_blocks) + 2, len(blocks)) if amend_blocks else range(0)
+    amend_end = len(blocks) - (len(replay_blocks) + 1 if replay_blocks else 0)
+    amend_rows = range(amend_end - len(amend_blocks) + 2, amend_end) if amend_blocks else range(0)
 
     def repeat(i: int) -> list[Block]:
         """A table continued on a new page starts with its header again."""

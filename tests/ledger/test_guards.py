@@ -41,6 +41,14 @@ def full(store_url) -> str:
         led.append("adjudication", {"case_id": "c-000001", "case_seq": 1, "adjudicator": "r3", "label": "sound",
                                     "reason": "readers split", "readings": [5, 6],
                                     "adjudicated_at": "2026-12-01T12:00:00Z"})
+        led.append("replay", {"case_id": "c-000001", "case_seq": c.seq, "case_hash": c.hash,
+                              "replayed_at": "2026-12-01T13:00:00Z", "reproduces": True,
+                              "input_sha256": "a" * 64, "model_digest": "b" * 64, "settings_digest": "c" * 64,
+                              "tolerances": {"confidence_abs": 1e-5, "map_spearman_min": 0.999,
+                                             "map_max_abs_rel": 1e-4},
+                              "label": {"recorded": "sound", "replayed": "sound", "equal": True},
+                              "confidence": {"recorded": 0.9, "replayed": 0.9, "abs_diff": 0.0, "within": True},
+                              "maps": [], "checks": [], "differences": [], "software": {"casefile": "0.1.0"}})
         led.seal()
     return db
 
@@ -100,16 +108,16 @@ def test_rebuild_command_records_that_it_ran(full):
     done = cli(full, "rebuild", "--reason", "checking the rebuild path", "--json")
     assert done.returncode == 0, done.stderr
     line = json.loads(done.stdout)
-    assert line["seq"] == 8 and line["reason"] == "checking the rebuild path" and line["entries"] == 7
+    assert line["seq"] == 9 and line["reason"] == "checking the rebuild path" and line["entries"] == 8
     assert line["rows"]["cases"] == 1 and line["rows"]["seals"] == 1 and line["rows"]["entry_blobs"] == 1
-    assert line["rows"]["case_checks"] == 1 and line["rows"]["adjudications"] == 1
+    assert line["rows"]["case_checks"] == 1 and line["rows"]["adjudications"] == 1 and line["rows"]["replays"] == 1
     with Ledger(full) as led:
-        assert led.get(8).kind == "rebuild" and led.verify().ok
+        assert led.get(9).kind == "rebuild" and led.verify().ok
     line = refused_line(cli(full, "rebuild", "--reason", "  "))
     assert "reason is empty" in line, line
     assert cli(full, "rebuild").returncode == 2  # --reason is required
     with Ledger(full) as led:
-        assert led.count() == 8
+        assert led.count() == 9
 
 
 def test_duplicate_case_raises_duplicate_case_error(store_url):

@@ -18,6 +18,20 @@ from demo_cases.nets import tiny_net
 from demo_cases.train import ENTRY_POINT
 
 
+def copy_demo_ledger(demo_dir: Path, tmp_path: Path) -> Path:
+    """A copy of the demo's ledger (with its WAL) that a test may append to; the session's stays as it was."""
+    from casefile.ledger import Ledger
+
+    store = tmp_path / "copy.db"
+    src = Ledger(str(demo_dir / "casefile.db"), create=False)
+    src.engine.dispose()
+    shutil.copy(demo_dir / "casefile.db", store)
+    for suffix in ("-wal", "-shm"):
+        if (demo_dir / f"casefile.db{suffix}").exists():
+            shutil.copy(demo_dir / f"casefile.db{suffix}", tmp_path / f"copy.db{suffix}")
+    return store
+
+
 @pytest.fixture(scope="session")
 def demo_dir(tmp_path_factory) -> Path:
     out = tmp_path_factory.mktemp("demo")

@@ -7,7 +7,6 @@ Sequence), 21 CFR 11.10(e) (an amendment leaves the original visible).
 from __future__ import annotations
 
 import json
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -17,6 +16,8 @@ from pypdf import PdfReader
 
 from casefile.ledger import Ledger
 
+from .conftest import copy_demo_ledger
+
 ROOT = Path(__file__).resolve().parents[2]
 
 
@@ -25,23 +26,12 @@ def run(store: Path, *args: str) -> subprocess.CompletedProcess:
                           capture_output=True, text=True, cwd=ROOT)
 
 
-def _copy(demo_dir: Path, tmp_path: Path) -> Path:
-    store = tmp_path / "copy.db"
-    src = Ledger(str(demo_dir / "casefile.db"), create=False)
-    src.engine.dispose()
-    shutil.copy(demo_dir / "casefile.db", store)
-    for suffix in ("-wal", "-shm"):
-        if (demo_dir / f"casefile.db{suffix}").exists():
-            shutil.copy(demo_dir / f"casefile.db{suffix}", tmp_path / f"copy.db{suffix}")
-    return store
-
-
 def _case_of(led: Ledger, kind: str) -> dict:
     return next(r for r in led.cases() if r["file_name"].endswith(kind))
 
 
 def test_sheet_and_export(demo_dir, tmp_path):
-    store = _copy(demo_dir, tmp_path)
+    store = copy_demo_ledger(demo_dir, tmp_path)
     led = Ledger(str(store), create=False)
     dcm_case, png_case = _case_of(led, ".dcm"), _case_of(led, ".png")
     out = tmp_path / "s.pdf"
@@ -65,7 +55,7 @@ def test_sheet_and_export(demo_dir, tmp_path):
 
 
 def test_audit_sample_review_stats(demo_dir, tmp_path):
-    store = _copy(demo_dir, tmp_path)
+    store = copy_demo_ledger(demo_dir, tmp_path)
     led = Ledger(str(store), create=False)
     rows = [json.loads(x) for x in run(store, "audit", "--model", "casting-shortcut", "--json").stdout.splitlines()]
     assert len(rows) == 40 and {r["model_name"] for r in rows} == {"casting-shortcut"}
@@ -91,7 +81,7 @@ def test_audit_sample_review_stats(demo_dir, tmp_path):
 
 
 def test_amend_keeps_the_original_and_history_shows_both(demo_dir, tmp_path):
-    store = _copy(demo_dir, tmp_path)
+    store = copy_demo_ledger(demo_dir, tmp_path)
     led = Ledger(str(store), create=False)
     case = led.cases()[0]
     before = led.get(case["seq"]).raw
