@@ -40,7 +40,14 @@ POINTWISE_FUNCTIONS = {
     F.sigmoid, F.tanh,
 }
 POINTWISE_METHODS = {"relu", "sigmoid", "tanh", "contiguous"}
-ADD = {operator.add, operator.iadd, torch.add}
+_ATEN = torch.ops.aten
+POINTWISE_FUNCTIONS |= {  # the same, as operators in a torch.export graph
+    _ATEN.relu.default, _ATEN.sigmoid.default, _ATEN.tanh.default, _ATEN.hardtanh.default, _ATEN.leaky_relu.default,
+    _ATEN.gelu.default, _ATEN.silu.default, _ATEN.elu.default, _ATEN.hardswish.default, _ATEN.hardsigmoid.default,
+    _ATEN.clone.default,
+}
+ADD = {operator.add, operator.iadd, torch.add, _ATEN.add.Tensor}
+CAT = {torch.cat, _ATEN.cat.default}
 
 
 class NotTraceable(Exception):
@@ -80,10 +87,44 @@ class Plan:
     macs_full: int = 0
 
 
+def _inlined(module: nn.Module) -> fx.GraphModule | None:
+    """One flat graph for a module that carries its own graphs (``torch.export.unflatten``'s modules:
+    a graph per submodule, each holding operators), with every submodule's graph inlined; None for any
+    other module."""
+    if not isinstance(getattr(module, "graph", None), fx.Graph):
+        return None
+    flat = fx.Graph()
+
+    def copy(graph: fx.Graph, prefix: str, inputs: list[Any]) -> Any:
+        env: dict[fx.Node, Any] = {}
+        feed = iter(inputs)
+        for n in graph.nodes:
+            if n.op == "placeholder":
+                env[n] = next(feed)
+            elif n.op == "output":
+                return fx.node.map_arg(n.args[0], lambda a: env[a])
+            elif n.op == "call_module":
+                sub = module.get_submodule(prefix + str(n.target))
+                args = fx.node.map_arg(n.args, lambda a: env[a])
+                if isinstance(getattr(sub, "graph", None), fx.Graph) and not n.kwargs:
+                    env[n] = copy(sub.graph, prefix + str(n.target) + ".", list(args))
+                else:
+                    env[n] = flat.call_module(prefix + str(n.target), args, fx.node.map_arg(n.kwargs, lambda a: env[a]))
+            elif n.op == "get_attr":
+                env[n] = flat.get_attr(prefix + str(n.target))
+            else:
+                env[n] = flat.node_copy(n, lambda a: env[a])
+        return None
+
+    outer = [flat.placeholder(n.name) for n in module.graph.nodes if n.op == "placeholder"]
+    flat.output(copy(module.graph, "", outer))
+    return fx.GraphModule(module, flat)
+
+
 def trace(module: nn.Module, x: torch.Tensor) -> Plan:
     """Trace ``module`` and run ``x`` once, keeping every node's value; NotTraceable when tracing fails."""
     try:
-        gm = module if isinstance(module, fx.GraphModule) else fx.symbolic_trace(module)
+        gm = module if isinstance(module, fx.GraphModule) else (_inlined(module) or fx.symbolic_trace(module))
     except Exception as exc:  # any tracing failure means the plain method, with the reason recorded
         first = (str(exc).strip().splitlines() or [""])[0][:160]
         raise NotTraceable(f"{type(exc).__name__}: {first}") from None
@@ -106,55 +147,122 @@ def trace(module: nn.Module, x: torch.Tensor) -> Plan:
     return plan
 
 
-def macs(gm: fx.GraphModule, n: fx.Node, base: dict[str, Any], area: int | None = None) -> int:
-    """Multiply-adds of a convolution or linear node for one image (``area`` output positions if given)."""
-    if n.op != "call_module":
+def macs(gm: fx.GraphModule, n: fx.Node, base: dict[str, Any]) -> int:
+    """Multiply-adds of a convolution or linear node (module or operator) for one image."""
+    out = base.get(n.name)
+    if not isinstance(out, torch.Tensor):
         return 0
-    m = gm.get_submodule(str(n.target))
-    out = base[n.name]
-    if isinstance(m, nn.Conv2d):
-        per = m.out_channels * (m.in_channels // m.groups) * m.kernel_size[0] * m.kernel_size[1]
-        return per * (area if area is not None else out.shape[2] * out.shape[3])
-    if isinstance(m, nn.Linear):
-        return m.in_features * m.out_features * (out.numel() // m.out_features)
-    return 0
+    weight = None
+    if n.op == "call_module":
+        m = gm.get_submodule(str(n.target))
+        if isinstance(m, (nn.Conv2d, nn.Linear)):
+            weight = m.weight
+    elif n.op == "call_function" and n.target in (F.conv2d, _ATEN.conv2d.default, F.linear, _ATEN.linear.default):
+        w = n.args[1] if len(n.args) > 1 else n.kwargs.get("weight")
+        weight = base.get(w.name) if isinstance(w, fx.Node) else None
+    if not isinstance(weight, torch.Tensor):
+        return 0
+    if weight.dim() == 4:
+        return int(weight.numel()) * int(out.shape[-2] * out.shape[-1])
+    return int(weight.numel()) * (int(out.numel()) // max(1, int(out.shape[0])) // int(weight.shape[0]))
 
 
-def _window_axes(m: nn.Module) -> tuple[Window, Window, bool, float] | None:
-    """(rows, cols, ceil_mode, pad value) of a sliding-window module we can compute on windows."""
-    def pair(v: Any) -> tuple[int, int]:
-        return (v, v) if isinstance(v, int) else (int(v[0]), int(v[1]))
+@dataclass(frozen=True)
+class Slide:
+    """A sliding-window node we can compute on windows: its two axes, the value its padding holds, the
+    operation with padding 0 (for crops that carry their padding), and its multiply-adds per output."""
 
-    if isinstance(m, nn.Conv2d):
-        if m.padding_mode != "zeros" or isinstance(m.padding, str):
-            return None
-        k, s, p, d = pair(m.kernel_size), pair(m.stride), pair(m.padding), pair(m.dilation)
-        ceil, pad = False, 0.0
-    elif isinstance(m, nn.MaxPool2d):
-        if m.return_indices:
-            return None
-        k, p, d = pair(m.kernel_size), pair(m.padding), pair(m.dilation)
-        s = pair(m.stride if m.stride is not None else m.kernel_size)
-        ceil, pad = bool(m.ceil_mode), float("-inf")
-    elif isinstance(m, nn.AvgPool2d):
-        p = pair(m.padding)
-        if m.ceil_mode or m.divisor_override is not None or (not m.count_include_pad and p != (0, 0)):
-            return None
-        k, d = pair(m.kernel_size), (1, 1)
-        s = pair(m.stride if m.stride is not None else m.kernel_size)
-        ceil, pad = False, 0.0
-    else:
+    rows: Window
+    cols: Window
+    pad: float
+    op: Callable[[torch.Tensor], torch.Tensor]
+    macs_per_output: int = 0
+
+
+def _pair(v: Any) -> tuple[int, int]:
+    if isinstance(v, int):
+        return v, v
+    v = list(v)
+    return (int(v[0]), int(v[0])) if len(v) == 1 else (int(v[0]), int(v[1]))
+
+
+def _conv(weight: torch.Tensor, bias: Any, stride: Any, padding: Any, dilation: Any, groups: int) -> Slide | None:
+    if isinstance(padding, str) or not isinstance(weight, torch.Tensor) or weight.dim() != 4:
         return None
-    return Window(k[0], s[0], p[0], d[0]), Window(k[1], s[1], p[1], d[1]), ceil, pad
+    if bias is not None and not isinstance(bias, torch.Tensor):
+        return None
+    k, s, p, d = _pair(tuple(weight.shape[2:])), _pair(stride), _pair(padding), _pair(dilation)
+    s_, d_ = tuple(s), tuple(d)
+    per = int(weight.shape[0]) * int(weight.shape[1]) * k[0] * k[1]
+    return Slide(Window(k[0], s[0], p[0], d[0]), Window(k[1], s[1], p[1], d[1]), 0.0,
+                 lambda t: F.conv2d(t, weight, bias, s_, 0, d_, groups), per)
 
 
-def _unpadded(m: nn.Module) -> Callable[[torch.Tensor], torch.Tensor]:
-    """The module's operation with padding 0, for input crops that already carry their padding."""
-    if isinstance(m, nn.Conv2d):
-        return lambda t: F.conv2d(t, m.weight, m.bias, m.stride, 0, m.dilation, m.groups)
-    if isinstance(m, nn.MaxPool2d):
-        return lambda t: F.max_pool2d(t, m.kernel_size, m.stride or m.kernel_size, 0, m.dilation)
-    return lambda t: F.avg_pool2d(t, m.kernel_size, m.stride or m.kernel_size, 0)
+def _max_pool(kernel: Any, stride: Any, padding: Any, dilation: Any, ceil_mode: bool) -> Slide:
+    k = _pair(kernel)
+    s = _pair(stride) if stride not in (None, [], ()) else k
+    p, d = _pair(padding), _pair(dilation)
+    rows, cols = Window(k[0], s[0], p[0], d[0]), Window(k[1], s[1], p[1], d[1])
+    return Slide(rows, cols, float("-inf"), lambda t: F.max_pool2d(t, k, s, 0, d, ceil_mode=ceil_mode))
+
+
+def _avg_pool(kernel: Any, stride: Any, padding: Any, ceil_mode: bool, count_include_pad: bool,
+              divisor_override: Any) -> Slide | None:
+    k = _pair(kernel)
+    s = _pair(stride) if stride not in (None, [], ()) else k
+    p = _pair(padding)
+    if ceil_mode or divisor_override is not None or (not count_include_pad and p != (0, 0)):
+        return None  # the divisor would change at the border
+    return Slide(Window(k[0], s[0], p[0]), Window(k[1], s[1], p[1]), 0.0, lambda t: F.avg_pool2d(t, k, s, 0))
+
+
+def _bind(target: Any, args: Sequence[Any], kwargs: dict[str, Any], names: Sequence[str],
+          defaults: Sequence[Any]) -> list[Any] | None:
+    """Positional and keyword arguments of an operator call as one list, defaults filled in."""
+    out = list(args) + list(defaults[len(args):])
+    if len(args) > len(names):
+        return None
+    for k, v in kwargs.items():
+        if k not in names:
+            return None
+        out[names.index(k)] = v
+    return out
+
+
+_CONV_ARGS = ("input", "weight", "bias", "stride", "padding", "dilation", "groups")
+_MAX_ARGS = ("input", "kernel_size", "stride", "padding", "dilation", "ceil_mode")
+_AVG_ARGS = ("input", "kernel_size", "stride", "padding", "ceil_mode", "count_include_pad", "divisor_override")
+
+
+def sliding(gm: fx.GraphModule, n: fx.Node, args: Sequence[Any], kwargs: dict[str, Any]) -> Slide | None:
+    """The Slide of node ``n`` (a module or an operator call, with its arguments' values), or None."""
+    if n.op == "call_module":
+        m = gm.get_submodule(str(n.target))
+        if len(args) != 1 or kwargs:
+            return None
+        if isinstance(m, nn.Conv2d):
+            if m.padding_mode != "zeros":
+                return None
+            return _conv(m.weight, m.bias, m.stride, m.padding, m.dilation, m.groups)
+        if isinstance(m, nn.MaxPool2d) and not m.return_indices:
+            return _max_pool(m.kernel_size, m.stride, m.padding, m.dilation, bool(m.ceil_mode))
+        if isinstance(m, nn.AvgPool2d):
+            return _avg_pool(m.kernel_size, m.stride, m.padding, bool(m.ceil_mode), bool(m.count_include_pad),
+                             m.divisor_override)
+        return None
+    if n.op != "call_function":
+        return None
+    t = n.target
+    if t in (F.conv2d, _ATEN.conv2d.default):
+        b = _bind(t, args, kwargs, _CONV_ARGS, (None, None, None, 1, 0, 1, 1))
+        return None if b is None else _conv(b[1], b[2], b[3], b[4], b[5], int(b[6]))
+    if t in (F.max_pool2d, _ATEN.max_pool2d.default):
+        b = _bind(t, args, kwargs, _MAX_ARGS, (None, None, None, 0, 1, False))
+        return None if b is None else _max_pool(b[1], b[2], b[3], b[4], bool(b[5]))
+    if t in (F.avg_pool2d, _ATEN.avg_pool2d.default):
+        b = _bind(t, args, kwargs, _AVG_ARGS, (None, None, None, 0, False, True, None))
+        return None if b is None else _avg_pool(b[1], b[2], b[3], bool(b[4]), bool(b[5]), b[6])
+    return None
 
 
 def materialise(v: Patched) -> torch.Tensor:
@@ -233,6 +341,8 @@ class Runner:
         for n in self.gm.graph.nodes:
             if n.op == "output":
                 result = self._full_arg(self._args(n.args, env)[0])
+                if isinstance(result, (tuple, list)) and len(result) == 1:
+                    result = result[0]  # a torch.export graph returns its one output in a tuple
                 break
             if n.name not in self.plan.depends:
                 env[n.name] = self.plan.base[n.name]
@@ -261,7 +371,7 @@ class Runner:
     def _node(self, n: fx.Node, env: dict[str, Any]) -> Any:
         args, kwargs = self._args(n.args, env), self._args(n.kwargs, env)
         first = args[0] if args else None
-        if n.op == "call_function" and n.target is torch.cat and isinstance(first, (list, tuple)):
+        if n.op == "call_function" and n.target in CAT and isinstance(first, (list, tuple)):
             out = self._cat(n, list(first), args[1:], kwargs)
             if out is not None:
                 return out
@@ -281,12 +391,11 @@ class Runner:
         if n.op == "call_module":
             m = self.gm.get_submodule(str(n.target))
             out = m(*fa, **fk)
-            if isinstance(m, (nn.Conv2d, nn.Linear)):
-                self.macs_done += macs(self.gm, n, self.plan.base) * _batch(fa[0])
         elif n.op == "call_method":
             out = getattr(fa[0], str(n.target))(*fa[1:], **fk)
         else:
             out = n.target(*fa, **fk)  # type: ignore[operator]
+        self.macs_done += macs(self.gm, n, self.plan.base) * _batch(fa[0] if fa else None)
         if any(isinstance(a, (Patched, Full)) for a in _flat(args)):
             self.full_from.add(n.name)
             return Full(out)
@@ -294,14 +403,16 @@ class Runner:
 
     def _windowed(self, n: fx.Node, args: Any, kwargs: Any, first: Patched) -> Any:
         """The node computed on windows, or None when it must be computed in full."""
+        if not _per_position(args[1:], kwargs):
+            slide = sliding(self.gm, n, args, kwargs)
+            if slide is not None:
+                return self._sliding(n, first, slide)
+            if n.op == "call_function" and n.target is _ATEN.batch_norm.default and args[5:6] != (True,):
+                return self._pointwise(n, first, lambda t: n.target(t, *args[1:], **kwargs))  # type: ignore[operator]
         if n.op == "call_module":
             m = self.gm.get_submodule(str(n.target))
             if isinstance(m, POINTWISE_MODULES) and len(args) == 1 and not kwargs:
                 return self._pointwise(n, first, lambda t: m(t))
-            axes = _window_axes(m)
-            if axes is not None and len(args) == 1 and not kwargs:
-                return self._sliding(n, m, first, axes)
-            return None
         if n.op == "call_function" and n.target in POINTWISE_FUNCTIONS and not _tensors(args[1:], kwargs):
             return self._pointwise(n, first, lambda t: n.target(t, *args[1:], **kwargs))  # type: ignore[operator]
         if n.op == "call_method" and n.target in POINTWISE_METHODS and not _tensors(args[1:], kwargs):
@@ -324,20 +435,18 @@ class Runner:
     def _pointwise(self, n: fx.Node, v: Patched, op: Callable[[torch.Tensor], torch.Tensor]) -> Patched:
         return Patched(self.plan.base[n.name], v.regions, v.starts, v.size, op(v.data))
 
-    def _sliding(self, n: fx.Node, m: nn.Module, v: Patched, axes: tuple[Window, Window, bool, float]) -> Any:
-        rows, cols, _, pad = axes
+    def _sliding(self, n: fx.Node, v: Patched, slide: Slide) -> Any:
+        rows, cols = slide.rows, slide.cols
         out_shape = self.plan.base[n.name].shape
         oh, ow = int(out_shape[2]), int(out_shape[3])
         regions = [(rows.changed(*r, oh), cols.changed(*c, ow)) for r, c in v.regions]
-        op = _unpadded(m)
 
         def make(starts: list[tuple[int, int]], size: tuple[int, int]) -> torch.Tensor:
             need = [(rows.needs(r, size[0])[0], cols.needs(c, size[1])[0]) for r, c in starts]
             in_size = (rows.needs(0, size[0])[1] - rows.needs(0, size[0])[0],
                        cols.needs(0, size[1])[1] - cols.needs(0, size[1])[0])
-            if isinstance(m, nn.Conv2d):
-                self.macs_done += macs(self.gm, n, self.plan.base, area=size[0] * size[1]) * len(starts)
-            return op(crop(v, need, in_size, pad))
+            self.macs_done += slide.macs_per_output * size[0] * size[1] * len(starts)
+            return slide.op(crop(v, need, in_size, slide.pad))
 
         return self._patched(n.name, regions, make)
 
@@ -363,8 +472,51 @@ def _flat(a: Any) -> list[Any]:
     return [a]
 
 
+def _per_position(args: Any, kwargs: Any) -> bool:
+    return any(isinstance(a, (Patched, Full)) for a in _flat(args) + _flat(kwargs))
+
+
 def _tensors(args: Any, kwargs: Any) -> bool:
     return any(isinstance(a, (torch.Tensor, Patched, Full)) for a in _flat(args) + _flat(kwargs))
 
 
-__all__ = ["FULL_SHARE", "Full", "NotTraceable", "Patched", "Plan", "Runner", "crop", "macs", "materialise", "trace"]
+__all__ = ["FULL_SHARE", "Full", "NotTraceable", "Patched", "Plan", "Runner", "crop", "macs", "materialise",
+           "projective_macs", "trace"]
+
+
+def projective_macs(plan: Plan, boxes: Sequence[tuple[int, int, int, int]]) -> int:
+    """Multiply-adds the patches' projective fields require, summed over ``boxes`` (row, col, height,
+    width): each convolution computed only where its output can change, every layer after the first
+    whole-map node (pooling to a vector, flatten, ...) in full. The lower bound of any exact incremental
+    method that shares this graph; ``len(boxes) * plan.macs_full`` is the cost of full forward passes."""
+    gm, base = plan.graph, plan.base
+    regions: dict[str, list | None] = {}  # None: changed everywhere
+    total = 0
+    for n in gm.graph.nodes:
+        if n.name not in plan.depends or n.op == "output":
+            continue
+        ins = [regions.get(a.name) for a in n.all_input_nodes if a.name in plan.depends]
+        if n.op == "placeholder":
+            regions[n.name] = [((r, r + h), (c, c + w)) for r, c, h, w in boxes]
+            continue
+        known = all(x is not None for x in ins) and ins
+        out: list | None = None
+        m = gm.get_submodule(str(n.target)) if n.op == "call_module" else None
+        values = fx.node.map_arg((n.args, n.kwargs), lambda a: base[a.name])
+        slide = sliding(gm, n, values[0], values[1]) if known and len(ins) == 1 else None
+        if slide is not None:
+            oh, ow = int(base[n.name].shape[2]), int(base[n.name].shape[3])
+            out = [(slide.rows.changed(*r, oh), slide.cols.changed(*c, ow)) for r, c in ins[0]]
+        elif known and (isinstance(m, POINTWISE_MODULES) or n.target in POINTWISE_FUNCTIONS
+                        or n.target is _ATEN.batch_norm.default
+                        or (n.op == "call_method" and n.target in POINTWISE_METHODS)) and len(ins) == 1:
+            out = ins[0]
+        elif known and (n.target in ADD or n.target in CAT):
+            out = [(reduce(union, (x[i][0] for x in ins)), reduce(union, (x[i][1] for x in ins)))
+                   for i in range(len(boxes))]
+        regions[n.name] = out
+        if out is None:
+            total += macs(gm, n, base) * len(boxes)
+        elif slide is not None:
+            total += sum(slide.macs_per_output * (r[1] - r[0]) * (c[1] - c[0]) for r, c in out)
+    return total

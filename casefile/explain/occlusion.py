@@ -45,8 +45,10 @@ class OcclusionResult:
     batch_size: int = 0
     mode: str = "batched"
     exact: bool = True
+    fidelity: float = 1.0
     summary: str = ""
     notes: list[str] = field(default_factory=list)
+    work_share: float | None = None  # multiply-adds computed over those of one forward pass per position
 
 
 def positions(size: int, patch: int, stride: int) -> list[int]:
@@ -94,6 +96,20 @@ def fill_image(
     return torch.full_like(x, float(fill))
 
 
+def check_mode(mode: object, fidelity: object, where: str = "") -> float:
+    """The fidelity to use for ``mode`` (its default when None); a one-line ExplainError for either
+    being wrong. Exact modes take no fidelity."""
+    if mode not in MODES:
+        raise ExplainError(f"{where}occlusion mode: {mode!r} is not one of {', '.join(MODES)}")
+    if fidelity is None:
+        return DEFAULT_FIDELITY.get(str(mode), 1.0)
+    if mode in EXACT_MODES:
+        raise ExplainError(f"{where}occlusion fidelity: {mode} is exact and takes no fidelity (give none)")
+    if isinstance(fidelity, bool) or not isinstance(fidelity, (int, float)) or not 0 < float(fidelity) <= 1:
+        raise ExplainError(f"{where}occlusion fidelity: {fidelity!r} is not a number above 0 and at most 1")
+    return float(fidelity)
+
+
 def _check_int(name: str, value: object) -> int:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or int(value) < 1:
         raise ExplainError(f"occlusion {name}: expected a positive whole number, got {value!r}")
@@ -133,13 +149,7 @@ def occlusion(
     patch = _check_int("patch", patch)
     stride = _check_int("stride", stride)
     batch_size = _check_int("batch_size", batch_size)
-    if mode not in MODES:
-        raise ExplainError(f"occlusion mode: {mode!r} is not one of {', '.join(MODES)}")
-    if fidelity is None:
-        fidelity = DEFAULT_FIDELITY.get(mode, 1.0)
-    if isinstance(fidelity, bool) or not isinstance(fidelity, (int, float)) or not 0 < float(fidelity) <= 1:
-        raise ExplainError(f"occlusion fidelity: {fidelity!r} is not a number above 0 and at most 1")
-    fidelity = float(fidelity)
+    fidelity = check_mode(mode, fidelity)
     if output not in OUTPUTS:
         raise ExplainError(f"occlusion output: {output!r} is not one of {', '.join(OUTPUTS)}")
     _, _, h, w = x.shape
@@ -190,8 +200,10 @@ def occlusion(
         batch_size=used,
         mode=mode if drops.fell_back is None else "batched",
         exact=mode in EXACT_MODES,
+        fidelity=fidelity,
         summary=summary,
         notes=drops.notes(),
+        work_share=drops.work_share(),
     )
 
 
@@ -205,7 +217,8 @@ class Drops:
         self.used = batch_size
         self.plan: Plan | None = None
         self.fell_back: str | None = None
-        self.full_from: set[str] = set()
+        self.macs_done = 0
+        self.positions_done = 0
 
     def notes(self) -> list[str]:
         if self.fell_back is not None:
@@ -223,6 +236,11 @@ class Drops:
         ph, pw = self.patch
         try:
             if self.plan is None:
+                _, took = batched_logits(self.module, self.x.repeat(2, 1, 1, 1), 2)
+                if took == 1:  # the model itself refuses batches: its traced graph must not be trusted with one
+                    self.used = 1
+                    self.fell_back = "the model takes one image at a time"
+                    return None
                 self.plan = trace(self.module, self.x)
             runner = Runner(self.plan, truncate_share=share)
             pieces = torch.stack([self.filler[0, :, r : r + ph, c : c + pw] for r, c in chunk])
@@ -237,14 +255,22 @@ class Drops:
         if not isinstance(out, torch.Tensor) or out.dim() != 2 or out.shape[0] != len(chunk):
             self.fell_back = "the traced model did not give one row of logits per position"
             return None
-        self.full_from |= runner.full_from
+        self.macs_done += runner.macs_done
+        self.positions_done += len(chunk)
         return out
+
+    def work_share(self) -> float | None:
+        """Multiply-adds computed incrementally over those of one full forward pass per position."""
+        if self.fell_back is not None or self.plan is None or not self.positions_done or not self.plan.macs_full:
+            return None
+        return self.macs_done / (self.positions_done * self.plan.macs_full)
 
     def __call__(self, spots: list[tuple[int, int]], method: str, share: float = 1.0
                  ) -> tuple[torch.Tensor, torch.Tensor]:
         drops_z = torch.empty(len(spots), dtype=torch.float64)
         drops_p = torch.empty(len(spots), dtype=torch.float64)
-        for start in range(0, len(spots), self.used):
+        start = 0
+        while start < len(spots):
             chunk = spots[start : start + self.used]
             out = None
             if method == "incremental" and self.fell_back is None:
@@ -253,6 +279,7 @@ class Drops:
                 out, self.used = batched_logits(self.module, self._occluded(chunk), self.used)
             drops_z[start : start + len(chunk)] = (self.z0 - out[:, self.t]).to(torch.float64)
             drops_p[start : start + len(chunk)] = (self.p0 - torch.softmax(out, dim=1)[:, self.t]).to(torch.float64)
+            start += len(chunk)  # the batch may have shrunk to one after a fixed-batch model refused more
         return drops_z, drops_p
 
 
