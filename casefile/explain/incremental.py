@@ -29,7 +29,7 @@ from torch import fx, nn
 
 from .fields import Window, place, truncate, union
 
-FULL_SHARE = 0.6  # a window covering this share of its map switches to full maps (measured: benchmarks)
+FULL_SHARE = 0.9  # a window covering this share of its map switches to full maps (see benchmarks/occlusion.py)
 
 POINTWISE_MODULES = (
     nn.ReLU, nn.ReLU6, nn.LeakyReLU, nn.ELU, nn.GELU, nn.SiLU, nn.Sigmoid, nn.Tanh, nn.Hardswish,
