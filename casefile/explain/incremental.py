@@ -27,6 +27,8 @@ import torch
 import torch.nn.functional as F
 from torch import fx, nn
 
+from casefile.errors import one_line
+
 from .fields import Window, place, truncate, union
 
 FULL_SHARE = 0.9  # a window covering this share of its map switches to full maps (see benchmarks/occlusion.py)
@@ -126,8 +128,7 @@ def trace(module: nn.Module, x: torch.Tensor) -> Plan:
     try:
         gm = module if isinstance(module, fx.GraphModule) else (_inlined(module) or fx.symbolic_trace(module))
     except Exception as exc:  # any tracing failure means the plain method, with the reason recorded
-        first = (str(exc).strip().splitlines() or [""])[0][:160]
-        raise NotTraceable(f"{type(exc).__name__}: {first}") from None
+        raise NotTraceable(f"{type(exc).__name__}: {one_line(exc)}") from None
     base: dict[str, Any] = {}
     depends: set[str] = set()
 

@@ -10,7 +10,7 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
-from casefile.errors import ExplainError
+from casefile.errors import ExplainError, one_line
 
 from ._common import (
     batched_logits,
@@ -24,8 +24,12 @@ from ._common import (
 from .incremental import NotTraceable, Plan, Runner, trace
 
 OUTPUTS = ("probability", "logit")
-MODES = ("incremental", "batched", "truncated", "coarse-to-fine")
-EXACT_MODES = ("incremental", "batched")
+MODES = ("auto", "incremental", "batched", "truncated", "coarse-to-fine")
+EXACT_MODES = ("auto", "incremental", "batched")
+# "auto" computes incrementally only for a model of at least this many multiply-adds per image: below it,
+# windows of a few pixels run slower per value than whole maps and the plain method is as fast or faster
+# (measured: benchmarks/occlusion.py, the demo's 5-million model against a ResNet-18 shape)
+AUTO_MIN_MACS = 100_000_000
 DEFAULT_FIDELITY = {"truncated": 0.5, "coarse-to-fine": 0.25}
 
 
@@ -128,7 +132,7 @@ def occlusion(
     output: str = "probability",
     blur_sigma: float | None = None,
     return_all: bool = False,
-    mode: str = "incremental",
+    mode: str = "auto",
     fidelity: float | None = None,
 ) -> np.ndarray | OcclusionResult:
     """Occlusion map float32 [H, W]: the drop in the class probability (or logit) when a patch is filled.
@@ -139,6 +143,8 @@ def occlusion(
 
     ``mode``: "incremental" (exact: each covered image computed as a change to one cached run, see
     ``incremental``; a model that cannot be traced uses "batched", and the result's notes say so),
+    "auto" (the default: "incremental" for a model of at least ``AUTO_MIN_MACS`` multiply-adds per image,
+    else "batched", and the notes say why),
     "batched" (exact: one forward per position, in batches), and two approximate modes whose
     ``fidelity`` (0 < f <= 1) sets how much is computed: "truncated" keeps that share of each layer's map
     around the patch's changed window, "coarse-to-fine" computes every position of twice the stride and
@@ -171,7 +177,7 @@ def occlusion(
         if mode == "coarse-to-fine":
             drops_z, drops_p, summary = _coarse_to_fine(drops, rows, cols, stride, fidelity, h, w)
         else:
-            drops_z, drops_p = drops(spots, "batched" if mode == "batched" else "incremental",
+            drops_z, drops_p = drops(spots, "incremental" if mode == "truncated" else mode,
                                      fidelity if mode == "truncated" else 1.0)
             if mode == "truncated":
                 summary = f"each layer's changed window cut to {fidelity:.0%} of its map about its centre"
@@ -187,6 +193,9 @@ def occlusion(
     if not return_all:
         return maps[output]
     shape = (len(rows), len(cols))
+    used_mode = mode
+    if mode in ("auto", "incremental", "truncated"):
+        used_mode = "batched" if drops.fell_back is not None else ("incremental" if mode == "auto" else mode)
     return OcclusionResult(
         probability=maps["probability"],
         logit=maps["logit"],
@@ -198,8 +207,8 @@ def occlusion(
         stride=stride,
         target=t,
         batch_size=used,
-        mode=mode if drops.fell_back is None else "batched",
-        exact=mode in EXACT_MODES,
+        mode=used_mode,
+        exact=used_mode != "truncated" and mode != "coarse-to-fine",
         fidelity=fidelity,
         summary=summary,
         notes=drops.notes(),
@@ -232,7 +241,7 @@ class Drops:
             xs[i, :, r : r + ph, c : c + pw] = self.filler[0, :, r : r + ph, c : c + pw]
         return xs
 
-    def _incremental(self, chunk: list[tuple[int, int]], share: float) -> torch.Tensor | None:
+    def _incremental(self, chunk: list[tuple[int, int]], share: float, auto: bool = False) -> torch.Tensor | None:
         ph, pw = self.patch
         try:
             if self.plan is None:
@@ -242,6 +251,10 @@ class Drops:
                     self.fell_back = "the model takes one image at a time"
                     return None
                 self.plan = trace(self.module, self.x)
+            if auto and self.plan.macs_full < AUTO_MIN_MACS:
+                self.fell_back = (f"the model needs {self.plan.macs_full / 1e6:.1f} million multiply-adds per image, "
+                                  f"below the {AUTO_MIN_MACS / 1e6:.0f} million where computing windows saves time")
+                return None
             runner = Runner(self.plan, truncate_share=share)
             pieces = torch.stack([self.filler[0, :, r : r + ph, c : c + pw] for r, c in chunk])
             out = runner.run(pieces, [(r, c, ph, pw) for r, c in chunk])
@@ -249,8 +262,7 @@ class Drops:
             self.fell_back = f"the model could not be traced ({exc})"
             return None
         except Exception as exc:  # an unforeseen graph: the exact plain method, and the record says why
-            first = (str(exc).strip().splitlines() or [""])[0][:160]
-            self.fell_back = f"the incremental method stopped ({type(exc).__name__}: {first})"
+            self.fell_back = f"the incremental method stopped ({type(exc).__name__}: {one_line(exc)})"
             return None
         if not isinstance(out, torch.Tensor) or out.dim() != 2 or out.shape[0] != len(chunk):
             self.fell_back = "the traced model did not give one row of logits per position"
@@ -273,8 +285,8 @@ class Drops:
         while start < len(spots):
             chunk = spots[start : start + self.used]
             out = None
-            if method == "incremental" and self.fell_back is None:
-                out = self._incremental(chunk, share)
+            if method in ("incremental", "auto") and self.fell_back is None:
+                out = self._incremental(chunk, share, auto=method == "auto")
             if out is None:
                 out, self.used = batched_logits(self.module, self._occluded(chunk), self.used)
             drops_z[start : start + len(chunk)] = (self.z0 - out[:, self.t]).to(torch.float64)
@@ -290,7 +302,7 @@ def _coarse_to_fine(drops: Drops, rows: list[int], cols: list[int], stride: int,
     ph, pw = drops.patch
     coarse_r, coarse_c = positions(h, ph, 2 * stride), positions(w, pw, 2 * stride)
     coarse = [(r, c) for r in coarse_r for c in coarse_c]
-    cz, cp = drops(coarse, "incremental")
+    cz, cp = drops(coarse, "auto")
     gz = cz.view(len(coarse_r), len(coarse_c))
     gp = cp.view(len(coarse_r), len(coarse_c))
     spots = [(r, c) for r in rows for c in cols]
@@ -303,7 +315,7 @@ def _coarse_to_fine(drops: Drops, rows: list[int], cols: list[int], stride: int,
             est_z[i], est_p[i] = cz[known[s]], cp[known[s]]
     chosen = sorted(rest, key=lambda i: -float(est_z[i]))[: round(share * len(rest))]
     if chosen:
-        fz, fp = drops([spots[i] for i in chosen], "incremental")
+        fz, fp = drops([spots[i] for i in chosen], "auto")
         est_z[chosen], est_p[chosen] = fz, fp
     summary = (f"every position at stride {2 * stride} ({len(coarse)}), then {len(chosen)} of the other "
                f"{len(rest)} positions at stride {stride} where the coarse logit-drop map is highest "
