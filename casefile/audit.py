@@ -25,15 +25,16 @@ CHECK_PREFIX = "check_"
 
 
 def parse_check(text: str) -> tuple[str, str]:
-    """``NAME=OUTCOME`` -> (name, outcome); a one-line ValidationError naming what is wrong."""
+    """``NAME=OUTCOME`` -> (name, outcome); a one-line ValidationError naming what is wrong (the text is
+    quoted in it; the caller adds where it came from)."""
     name, sep, outcome = text.partition("=")
     name, outcome = name.strip(), outcome.strip()
     if not sep or not name or not outcome:
-        raise ValidationError(f"--check {text!r}: give NAME=OUTCOME, e.g. region_focus=fail")
+        raise ValidationError(f"{text!r}: give NAME=OUTCOME, e.g. region_focus=fail")
     if name not in CHECK_NAMES:
-        raise ValidationError(f"--check {text!r}: unknown check {name!r}; checks: {', '.join(CHECK_NAMES)}")
+        raise ValidationError(f"{text!r}: unknown check {name!r}; checks: {', '.join(CHECK_NAMES)}")
     if outcome not in OUTCOMES:
-        raise ValidationError(f"--check {text!r}: outcome {outcome!r} is not one of {', '.join(OUTCOMES)}")
+        raise ValidationError(f"{text!r}: outcome {outcome!r} is not one of {', '.join(OUTCOMES)}")
     return name, outcome
 
 

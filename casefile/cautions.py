@@ -34,3 +34,7 @@ AGREEMENT_CAUTION = (
 # Model identity (the record's model.notes and the sheet beside the model digest).
 WEIGHTS_NOT_PINNED = "weights not pinned by the card"
 WEIGHTS_PINNED = "weights match the card's SHA-256"
+
+# The review page (casefile serve): the same cautions, said of a page rather than a sheet.
+CAUTION_PAGE_NOT_VERDICT = "This page is not a diagnosis and not an inspection verdict."
+PAGE_CAUTIONS: tuple[str, ...] = (CAUTION_INFLUENCE, CAUTION_PAGE_NOT_VERDICT, CAUTION_DECISIONS, CAUTION_CHECKS)

@@ -40,3 +40,14 @@ class OutputError(CasefileError):
 
 class ExchangeError(CasefileError):
     """A DICOM object cannot be made, or the archive refused it or cannot be reached."""
+
+
+def one_line(exc: BaseException, *, limit: int = 160, last: bool = False) -> str:
+    """An exception's message as one line for a user: its first non-empty line (``last``: its last, where
+    a library puts the cause after a trace of its own), cut to ``limit`` characters, or the exception's
+    type name when the message is empty."""
+    lines = [x.strip() for x in str(exc).splitlines() if x.strip()]
+    if not lines:
+        return type(exc).__name__
+    text = lines[-1] if last else lines[0]
+    return text if len(text) <= limit else text[: limit - 1] + "…"

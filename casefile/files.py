@@ -1,7 +1,9 @@
-"""Writing files whole: a reader sees the old file or the new one, never half of either."""
+"""Writing files whole (a reader sees the old file or the new one, never half of either), and a file's
+SHA-256 read in pieces (never the whole file in memory)."""
 
 from __future__ import annotations
 
+import hashlib
 import os
 import tempfile
 from pathlib import Path
@@ -46,3 +48,12 @@ def write_atomic(path: str | os.PathLike[str], data: bytes, *, mode: int | None 
         if tmp is not None and os.path.exists(tmp):
             os.unlink(tmp)
     return target
+
+
+def sha256_file(path: str | os.PathLike[str]) -> str:
+    """The SHA-256 of a file's bytes, as 64 hex digits, read 1 MiB at a time. OSError propagates."""
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()

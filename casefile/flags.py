@@ -86,6 +86,15 @@ def flagging_checks(checks: Iterable[Mapping[str, Any]], policy: Mapping[str, st
     return out
 
 
+_RANK = {"fail": 3, "warn": 2, "pass": 1}
+
+
+def worst(outcomes: Iterable[str]) -> Outcome:
+    """A case's status from its checks' outcomes: fail > warn > pass; not-run only when no check ran."""
+    ranked = [o for o in outcomes if o in _RANK]
+    return max(ranked, key=_RANK.__getitem__) if ranked else "not-run"  # type: ignore[return-value]
+
+
 def case_flagged(body: Mapping[str, Any]) -> bool:
     """Whether a case body is flagged: its own ``flagged`` field, else the default rule on its checks."""
     f = body.get("flagged")

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import hashlib
 import os
 import sys
 from collections.abc import Callable, Iterator, Sequence
@@ -16,8 +15,9 @@ from casefile.errors import (
     InputError,
     OutputError,
     ValidationError,
+    one_line,
 )
-from casefile.files import write_atomic
+from casefile.files import sha256_file, write_atomic
 from casefile.ledger import Ledger, utc_now
 from casefile.record import CaseRecord, build, settings_digest
 from casefile.runs import (
@@ -117,11 +117,7 @@ def iter_inputs(paths: Sequence[str | os.PathLike[str]]) -> Iterator[Path]:
 
 def _file_digest(path: Path) -> str | None:
     try:
-        h = hashlib.sha256()
-        with open(path, "rb") as f:
-            for chunk in iter(lambda: f.read(1 << 20), b""):
-                h.update(chunk)
-        return h.hexdigest()
+        return sha256_file(path)
     except OSError:
         return None
 
@@ -243,8 +239,7 @@ def _record_scan(ledger: Ledger, name: str, scan: Scan, loaded: LoadedModel, set
     except CasefileError as exc:
         return failed(str(exc), "explain")
     except (RuntimeError, ValueError) as exc:  # torch refuses something about this model or input
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        return failed(f"{base}: the explanation could not be computed: {first}", "explain")
+        return failed(f"{base}: the explanation could not be computed: {one_line(exc)}", "explain")
     try:
         entry = ledger.append("case", rec.body, blobs=rec.blobs)
     except ValidationError as exc:

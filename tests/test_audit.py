@@ -110,9 +110,14 @@ def test_cli_refusals_are_one_line_and_write_nothing(led, capsys):
     assert code == 0 and json.loads(out)["amends_seq"] == seq
 
 
-def test_cli_check_option_is_a_usage_error_when_malformed(led, capsys):
-    for bad in ("region_focus", "focus=fail", "region_focus=bad"):
-        with pytest.raises(SystemExit) as info:
-            main(["--store", led.path, "audit", "--check", bad])
-        assert info.value.code == 2
-        assert "--check" in capsys.readouterr().err
+@pytest.mark.parametrize(("bad", "words"), [
+    ("region_focus", "argument --check: 'region_focus': give NAME=OUTCOME"),
+    ("focus=fail", "argument --check: 'focus=fail': unknown check 'focus'"),
+    ("region_focus=bad", "argument --check: 'region_focus=bad': outcome 'bad' is not one of"),
+    ("region_focus: x", "argument --check: 'region_focus: x': give NAME=OUTCOME"),  # ': ' inside the text
+])
+def test_cli_check_option_is_a_usage_error_when_malformed(led, capsys, bad, words):
+    with pytest.raises(SystemExit) as info:
+        main(["--store", led.path, "audit", "--check", bad])
+    assert info.value.code == 2
+    assert words in capsys.readouterr().err.splitlines()[-1]

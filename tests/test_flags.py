@@ -8,12 +8,18 @@ ledger made by an older release (no `flagged` column, no check rows).
 from __future__ import annotations
 
 import sqlite3
+import subprocess
+import sys
+from pathlib import Path
 
 import pytest
 
+from casefile.errors import LedgerError
 from casefile.flags import DEFAULT_FLAG_POLICY, case_flagged, flagging_checks, flags, policy_problem
 from casefile.ledger import Ledger
 from tests.ledger.bodies import case_body
+
+ROOT = Path(__file__).resolve().parents[1]
 
 
 @pytest.mark.parametrize(("name", "outcome", "flagged"), [
@@ -41,6 +47,14 @@ def test_policy_problems_are_named():
     assert "rule 'always'" in policy_problem({"confidence": "always"})
 
 
+def _entries(path):
+    con = sqlite3.connect(path)
+    try:
+        return con.execute("SELECT seq, hash FROM entries ORDER BY seq").fetchall()
+    finally:
+        con.close()
+
+
 def _older(path):
     """Turn a ledger into one made before flags: no `flagged` column, no check rows, no adjudications."""
     con = sqlite3.connect(path, isolation_level=None)
@@ -60,7 +74,16 @@ def test_a_ledger_from_an_older_release_rebuilds_with_the_default_rule(tmp_path)
         led.append("case", body)
         led.append("case", case_body(2))
     _older(db)
-    with Ledger(str(db)) as led:
+    head = _entries(db)
+    with pytest.raises(LedgerError) as refused:  # anything else that opens it is refused, in one line
+        Ledger(str(db))
+    assert "older release" in str(refused.value) and "cases.flagged" in str(refused.value)
+    assert "casefile rebuild" in str(refused.value) and "\n" not in str(refused.value)
+    done = subprocess.run([sys.executable, "-m", "casefile.cli", "--store", str(db), "audit"], capture_output=True,
+                          text=True, cwd=ROOT)
+    assert done.returncode == 1 and "casefile rebuild" in done.stderr and "Traceback" not in done.stderr
+    assert _entries(db) == head  # nothing written by the refusals
+    with Ledger(str(db), allow_outdated=True) as led:
         report = led.verify()  # its query tables lack what this release derives, and verify says so
         assert not report.ok and "cases.flagged" in report.problem and "casefile rebuild" in report.problem
         led.rebuild_derived("upgrade: flags and check rows added")

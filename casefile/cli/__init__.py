@@ -14,11 +14,11 @@ import traceback
 from collections.abc import Sequence
 
 from casefile import __version__
-from casefile.cli import audit_cmds, card_cmds, case_cmds, ledger_cmds, review_cmds
+from casefile.cli import audit_cmds, card_cmds, case_cmds, ledger_cmds, review_cmds, server_cmds
 from casefile.cli.common import STORE_HELP, err, resolve_case_ids
-from casefile.errors import CasefileError, UsageError
+from casefile.errors import CasefileError, UsageError, one_line
 
-GROUPS = (ledger_cmds, case_cmds, card_cmds, audit_cmds, review_cmds)
+GROUPS = (ledger_cmds, case_cmds, card_cmds, audit_cmds, review_cmds, server_cmds)
 DEBUG_ENV = "CASEFILE_DEBUG"
 
 
@@ -44,11 +44,6 @@ def _debugging(args: argparse.Namespace) -> bool:
     return bool(getattr(args, "debug", False)) or os.environ.get(DEBUG_ENV, "").lower() in ("1", "true", "yes")
 
 
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0] if text else type(exc).__name__
-
-
 def _quiet_stdout() -> None:
     """After the reader of our output went away, point stdout at /dev/null so the final flush is silent."""
     try:
@@ -72,7 +67,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except UsageError as exc:  # an option that cannot work with this model or ledger: exit 2, nothing written
         if debug:
             traceback.print_exc()
-        args.subparser.error(_first_line(exc))
+        args.subparser.error(one_line(exc, limit=2000))
     except BrokenPipeError:
         _quiet_stdout()
         err(f"{name}: the output was closed before everything was written")
@@ -83,17 +78,17 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CasefileError as exc:
         if debug:
             traceback.print_exc()
-        err(f"{name}: {_first_line(exc)}")
+        err(f"{name}: {one_line(exc, limit=2000)}")
         return 1
     except OSError as exc:  # a file or folder the command was pointed at cannot be used
         if debug:
             traceback.print_exc()
         where = f"{exc.filename}: " if exc.filename else ""
-        err(f"{name}: {where}{exc.strerror or _first_line(exc)}")
+        err(f"{name}: {where}{exc.strerror or one_line(exc, limit=2000)}")
         return 1
     except Exception as exc:  # anything else is still one line; --debug shows where it came from
         if debug:
             traceback.print_exc()
-        err(f"{name}: unexpected error: {type(exc).__name__}: {_first_line(exc)} "
+        err(f"{name}: unexpected error: {type(exc).__name__}: {one_line(exc, limit=2000)} "
             f"(run with --debug for the traceback)")
         return 1

@@ -24,7 +24,7 @@ def _check_pair(text: str) -> tuple[str, str]:
     try:
         return parse_check(text)
     except ValidationError as exc:
-        raise argparse.ArgumentTypeError(str(exc).split(": ", 1)[1]) from None
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def cmd_audit(args: argparse.Namespace) -> int:

@@ -7,11 +7,12 @@ import sys
 from typing import TYPE_CHECKING
 
 from casefile.cli.common import CASE_ID_HELP, command, err, jsonl, non_negative_int, open_ledger, positive_int
+from casefile.runs import DEFAULT_METHODS, NAME_POLICIES
 
 if TYPE_CHECKING:
     from casefile.pipeline import Outcome, RunSettings
 
-METHOD_NAMES = ("gradcam", "occlusion", "gradient")  # casefile.explain.METHODS; checked equal by a test
+METHOD_NAMES = DEFAULT_METHODS  # casefile.explain.METHODS, without importing torch; checked equal by a test
 
 
 def method_list(text: str) -> tuple[str, ...]:
@@ -156,7 +157,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--max-file-pixels", type=positive_int, metavar="N", help="refuse inputs whose header "
                     "declares more than N values (pixels x samples x frames) per file (default: site settings, "
                     "else 400000000)")
-    sp.add_argument("--name-policy", choices=["base-name", "digest"], default=None,
+    sp.add_argument("--name-policy", choices=NAME_POLICIES, default=None,
                     help="how the record names each input: base-name (the file's name without its folder) or "
                          "digest ('sha256:' and 16 hex digits of the file's SHA-256, for files named after "
                          "patients). Default: the card's record_file_name (false means digest), else base-name; "

@@ -11,6 +11,8 @@ from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
+from casefile.flags import OUTCOMES
+
 if TYPE_CHECKING:
     from casefile.ledger import Ledger
 
@@ -29,10 +31,10 @@ def store(args: argparse.Namespace) -> str:
     return args.store or os.environ.get("CASEFILE_STORE") or DEFAULT_STORE
 
 
-def open_ledger(args: argparse.Namespace, create: bool = False) -> Ledger:
+def open_ledger(args: argparse.Namespace, create: bool = False, allow_outdated: bool = False) -> Ledger:
     from casefile.ledger import Ledger
 
-    return Ledger(store(args), create=create)
+    return Ledger(store(args), create=create, allow_outdated=allow_outdated)
 
 
 def resolve_case_ids(args: argparse.Namespace) -> None:
@@ -65,8 +67,7 @@ def command(sub: argparse._SubParsersAction, name: str, fn: Handler | None, help
             check: Check | None = None, epilog: str | None = None) -> argparse.ArgumentParser:
     """Add one command. ``check(args)`` runs after parsing and returns a usage problem (exit 2) or None.
     ``fn`` None: a group whose actions are added with ``subcommand``."""
-    sp = sub.add_parser(name, help=help_, description=help_, epilog=epilog,
-                        formatter_class=argparse.RawDescriptionHelpFormatter)
+    sp = sub.add_parser(name, help=help_, description=help_, epilog=epilog)
     sp.set_defaults(func=fn, check=check, subparser=sp)
     sp.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
                     help="show the full traceback of an error")
@@ -142,7 +143,6 @@ def share(text: str) -> float:
     return value
 
 
-STATUSES = ["pass", "warn", "fail", "not-run"]
 
 
 def add_case_filters(sp: argparse.ArgumentParser, what: str = "") -> None:
@@ -150,7 +150,7 @@ def add_case_filters(sp: argparse.ArgumentParser, what: str = "") -> None:
     pre = f"{what}: " if what else ""
     sp.add_argument("--model", help=f"{pre}model name, name@version, or digest prefix (8+ hex digits)")
     sp.add_argument("--label", help=f"{pre}predicted label")
-    sp.add_argument("--status", choices=STATUSES, help=f"{pre}worst check outcome")
+    sp.add_argument("--status", choices=OUTCOMES, help=f"{pre}worst check outcome")
     sp.add_argument("--since", metavar="T", type=since_time,
                     help=f"{pre}recorded at or after T (ISO 8601; UTC unless a zone is given)")
     sp.add_argument("--until", metavar="T", type=until_time,

@@ -16,7 +16,9 @@ from casefile.cli.common import (
     print_entry,
     share,
 )
-from casefile.review.plans import DEFAULT_MINIMUM
+from casefile.review.lot import LEVELS
+from casefile.review.plans import ALLOCATIONS, DEFAULT_MINIMUM, PLANS, STRATA
+from casefile.review.readings import VERDICTS
 
 PLAN_HELP = ("random: simple random sample (needs --size); stratified: by label, status or flag (needs --size); "
              "risk: every flagged case (a check sent it to a person) plus a simple random sample of the rest, at "
@@ -51,9 +53,14 @@ def _sample_usage(args: argparse.Namespace) -> str | None:
 
 
 def cmd_review(args: argparse.Namespace) -> int:
+    from casefile.cli.server_cmds import read_password
     from casefile.review import record_review
+    from casefile.review.accounts import confirm_reader, needs_password
 
-    entry = record_review(open_ledger(args), args.case_id, reader=args.reader, verdict=args.verdict,
+    ledger = open_ledger(args)
+    if needs_password(ledger, args.reader):  # a reader with an account: nobody else writes in their name
+        confirm_reader(ledger, args.reader, read_password(args.reader), f"review of {args.case_id}")
+    entry = record_review(ledger, args.case_id, reader=args.reader, verdict=args.verdict,
                           label=args.label, note=args.note, amends=args.amends, draw_id=args.draw,
                           new_label=args.new_label)
     draw_id = entry.body.get("draw_id")
@@ -96,15 +103,15 @@ def _aql(text: str) -> float:
 def register(sub: argparse._SubParsersAction) -> None:
     sp = command(sub, "sample", cmd_sample, "draw cases for a second read with a sampling plan; the draw is "
                  "recorded", check=_sample_usage)
-    sp.add_argument("--plan", required=True, choices=["random", "stratified", "risk", "lot"], help=PLAN_HELP)
+    sp.add_argument("--plan", required=True, choices=PLANS, help=PLAN_HELP)
     sp.add_argument("--size", type=positive_int, metavar="N", help="sample size (random, stratified, risk)")
     sp.add_argument("--aql", type=_aql, metavar="A", help="acceptable quality limit in %% (lot plan)")
-    sp.add_argument("--level", choices=["I", "II", "III"], default="II", help="general inspection level (lot)")
+    sp.add_argument("--level", choices=LEVELS, default="II", help="general inspection level (lot)")
     sp.add_argument("--seed", type=non_negative_int, default=0, metavar="S",
                     help="seed; the same seed redraws the same list")
-    sp.add_argument("--allocation", choices=["proportional", "equal"], default="proportional",
+    sp.add_argument("--allocation", choices=ALLOCATIONS, default="proportional",
                     help="stratified plan: sample in proportion to each stratum, or the same number from each")
-    sp.add_argument("--strata", choices=["label", "status", "label+status", "flagged"], default="label",
+    sp.add_argument("--strata", choices=STRATA, default="label",
                     help="stratified plan: what defines a stratum")
     sp.add_argument("--share", type=share, metavar="P", help="risk plan: share of unflagged cases to draw")
     sp.add_argument("--minimum", type=positive_int, default=DEFAULT_MINIMUM, metavar="N",
@@ -114,13 +121,15 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     sp = command(sub, "review", cmd_review, "record a reader's verdict on a case, for one draw",
                  epilog="A reader reads a case once per draw; to correct a reading, pass --amends SEQ "
-                        "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`).")
+                        "(the seq printed when it was recorded, or shown by `casefile history CASE_ID`). "
+                        "A reader with an account (`casefile reader add`) gives their password: typed at the "
+                        "terminal, or as the first line of standard input.")
     sp.add_argument("case_id", metavar="CASE_ID", help=CASE_ID_HELP)
-    sp.add_argument("--reader", required=True, metavar="ID")
-    sp.add_argument("--verdict", required=True, choices=["agree", "disagree", "unsure"])
+    sp.add_argument("--reader", required=True, metavar="ID", help="who read the case (a reader id of your site)")
+    sp.add_argument("--verdict", required=True, choices=VERDICTS)
     sp.add_argument("--label", metavar="L", help="the reader's label; one of the model's labels unless --new-label")
     sp.add_argument("--new-label", action="store_true", help="the label is not one the model knows; recorded as such")
-    sp.add_argument("--note", metavar="TEXT")
+    sp.add_argument("--note", metavar="TEXT", help="the reader's note, kept with the reading")
     sp.add_argument("--amends", type=positive_int, metavar="SEQ", help="this corrects the reader's reading SEQ")
     sp.add_argument("--draw", metavar="DRAW_ID",
                     help="the draw this reading is for (default: the latest draw holding the case)")
@@ -136,4 +145,5 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--draw", metavar="DRAW_ID", help="judge the readings of this draw (default: each reader's latest)")
 
     command(sub, "stats", cmd_stats, "disagreement rates with intervals, kappa (model vs readers, reader pairs, "
-            "Fleiss' for three or more), confusion tables, lot decisions; each figure names its n")
+            "Fleiss' for three or more), confusion tables, lot decisions, and the expected calibration error of "
+            "the model's confidence against readers' agreement; each figure names its n")

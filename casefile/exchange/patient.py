@@ -12,8 +12,6 @@ ledger never sees them.
 from __future__ import annotations
 
 import copy
-import hashlib
-import io
 import os
 from dataclasses import dataclass
 from typing import Any
@@ -22,6 +20,7 @@ import pydicom
 from pydicom.errors import InvalidDicomError
 
 from ..errors import InputError
+from ..files import sha256_file
 
 # Attributes of the Patient module, PS3.3 C.7.1.1 (Table C.7-1, including the Issuer of Patient ID
 # macro), by pydicom keyword; from memory of the 2024 edition of the table.
@@ -65,10 +64,9 @@ class PatientModule:
         return line
 
 
-def _read(path: str | os.PathLike[str]) -> bytes:
+def _digest(path: str | os.PathLike[str]) -> str:
     try:
-        with open(path, "rb") as f:
-            return f.read()
+        return sha256_file(path)
     except OSError as e:
         raise InputError(f"{path}: cannot read the patient source ({e.strerror})") from e
 
@@ -82,10 +80,9 @@ def patient_from(path: str | os.PathLike[str], case: dict[str, Any]) -> PatientM
     """
     inp = case.get("input") or {}
     cid = case.get("case_id", "?")
-    data = _read(path)
-    digest = hashlib.sha256(data).hexdigest()
+    digest = _digest(path)
     try:
-        ds = pydicom.dcmread(io.BytesIO(data), stop_before_pixels=True)
+        ds = pydicom.dcmread(path, stop_before_pixels=True)  # the header only; the pixels are never read
     except (InvalidDicomError, Exception) as e:  # any parse failure is one line about this file
         raise InputError(f"{path}: not a DICOM file ({type(e).__name__}); --patient-from needs the case's DICOM "
                          "source") from None

@@ -9,7 +9,7 @@ import numpy as np
 import torch
 from torch import nn
 
-from casefile.errors import CasefileError, ExplainError
+from casefile.errors import CasefileError, ExplainError, one_line
 
 
 def check_input(x: object) -> torch.Tensor:
@@ -88,7 +88,7 @@ def call_model(module: nn.Module, x: torch.Tensor) -> object:
     except CasefileError:
         raise
     except Exception as exc:  # any error raised by user model code is reported, not shown as a traceback
-        first = (str(exc).strip().splitlines() or [""])[0][:200]
+        first = one_line(exc, limit=200)
         raise ExplainError(
             f"model: forward pass failed on an input of shape {list(x.shape)}: {type(exc).__name__}: {first}"
         ) from None

@@ -45,7 +45,7 @@ from torch import nn
 
 from casefile.canonical import json_ready
 from casefile.errors import ExplainError
-from casefile.flags import DEFAULT_FLAG_POLICY, Outcome, flagging_checks, merged_policy, policy_problem
+from casefile.flags import DEFAULT_FLAG_POLICY, Outcome, flagging_checks, merged_policy, policy_problem, worst
 from casefile.software import software_versions
 
 from . import checks as ck
@@ -71,15 +71,6 @@ DEFAULT_SETTINGS: dict[str, Any] = {
     "flag_policy": dict(DEFAULT_FLAG_POLICY),
     **ck.CHECK_DEFAULTS,
 }
-
-_RANK = {"fail": 3, "warn": 2, "pass": 1}
-
-
-def worst(outcomes: Sequence[str]) -> Outcome:
-    """fail > warn > pass; not-run counts only when every check was not run."""
-    ranked = [o for o in outcomes if o in _RANK]
-    return max(ranked, key=_RANK.__getitem__) if ranked else "not-run"
-
 
 def apply_flag_policy(found: Sequence[ck.Check], policy: Mapping[str, str]) -> list[str]:
     """Set each check's ``flags`` by ``policy``; return the names of the checks that flag, in order."""

@@ -12,7 +12,7 @@ from typing import Any
 
 from PIL import Image
 
-from casefile.errors import CasefileError, InputError
+from casefile.errors import CasefileError, InputError, one_line
 from casefile.imaging.dicom import check_declared_size, load_dicom
 from casefile.imaging.dicom_parse import is_part10, parse_dicom
 from casefile.imaging.identity import ANNEX_E_IDENTIFIERS, SAFE_ATTRIBUTES, load_site_key, pseudonym
@@ -129,7 +129,8 @@ def load(
     except CasefileError:
         raise
     except Exception as exc:  # last guard: a damaged file must never surface as a traceback
-        text = (str(exc).strip().splitlines() or [""])[0][:120]
-        raise InputError(f"{name}: cannot be read ({type(exc).__name__}{': ' + text if text else ''})") from None
+        text = one_line(exc, limit=120)
+        shown = type(exc).__name__ + (f": {text}" if text != type(exc).__name__ else "")
+        raise InputError(f"{name}: cannot be read ({shown})") from None
     finally:
         pydicom_logger.setLevel(level)

@@ -12,7 +12,7 @@ from pydicom.encaps import get_frame
 from pydicom.multival import MultiValue
 from pydicom.pixels import apply_color_lut, convert_color_space, get_decoder
 
-from casefile.errors import InputError
+from casefile.errors import InputError, one_line
 from casefile.imaging import voi
 from casefile.imaging.attributes import as_float, as_int, first, lookup, safe_metadata
 from casefile.imaging.codestream import j2k_size, jpeg_size
@@ -33,11 +33,6 @@ DECODED_SYNTAXES = frozenset([*uids.UncompressedTransferSyntaxes, *uids.RLETrans
 # PS3.3 C.7.6.3.1.1: 1 for MONOCHROME1/2 and PALETTE COLOR, 3 for RGB and YBR; PS3.5 8.1.1: Bits Allocated
 # is 1 or a multiple of 8 (at most 64, Double Float Pixel Data).
 SAMPLES_PER_PIXEL = (1, 3)
-
-
-def _one_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return (text[0][:120] if text else type(exc).__name__) or type(exc).__name__
 
 
 def _transfer_syntax(ds: Dataset, name: str, notes: list[str]) -> str:
@@ -94,7 +89,7 @@ def _check_codestream(ds: Dataset, name: str, tsuid: str, frames: int, index: in
     try:
         data = get_frame(ds.PixelData, index, number_of_frames=frames)
     except Exception as exc:
-        raise InputError(f"{name}: encapsulated Pixel Data cannot be split into frames ({_one_line(exc)})") from None
+        raise InputError(f"{name}: encapsulated Pixel Data cannot be split into frames ({one_line(exc, limit=120)})") from None
     declared = reader(data)
     rows, cols = as_int(ds, "Rows", name), as_int(ds, "Columns", name)
     spp = as_int(ds, "SamplesPerPixel", name, default=1)
@@ -122,13 +117,13 @@ def _decode(ds: Dataset, name: str, tsuid: str, index: int | None) -> tuple[np.n
     try:
         decoder = get_decoder(tsuid)
     except Exception as exc:
-        raise InputError(f"{name}: unsupported transfer syntax {tsuid} ({_one_line(exc)})") from None
+        raise InputError(f"{name}: unsupported transfer syntax {tsuid} ({one_line(exc, limit=120)})") from None
     if not decoder.is_available:
         raise InputError(f"{name}: no decoder installed for transfer syntax {tsuid}")
     try:
         arr, meta = decoder.as_array(ds, index=index, raw=True)
     except Exception as exc:
-        raise InputError(f"{name}: pixel data cannot be decoded ({_one_line(exc)})") from None
+        raise InputError(f"{name}: pixel data cannot be decoded ({one_line(exc, limit=120)})") from None
     photometric = str(meta.get("photometric_interpretation") or ds.get("PhotometricInterpretation", ""))
     return arr, photometric.strip()
 
@@ -203,7 +198,7 @@ def _window_from_argument(values: np.ndarray, window: dict, name: str) -> tuple[
         fn = str(window.get("function", "LINEAR")).strip().upper()
         unit = voi.apply_window(values, c, w, fn)
     except (KeyError, TypeError, ValueError) as exc:
-        raise InputError(f"{name}: window argument not usable ({_one_line(exc)})") from None
+        raise InputError(f"{name}: window argument not usable ({one_line(exc, limit=120)})") from None
     return unit, {"source": "argument", "center": c, "width": w, "function": fn}
 
 
@@ -232,7 +227,7 @@ def _colour(ds: Dataset, arr: np.ndarray, photometric: str, name: str, notes: li
         try:
             arr = apply_color_lut(arr, ds)
         except Exception as exc:
-            raise InputError(f"{name}: palette colour table not usable ({_one_line(exc)})") from None
+            raise InputError(f"{name}: palette colour table not usable ({one_line(exc, limit=120)})") from None
         top = 255.0 if arr.dtype == np.uint8 else 65535.0
         notes.append("PALETTE COLOR converted to RGB")
     else:

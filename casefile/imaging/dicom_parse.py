@@ -19,7 +19,7 @@ from pydicom.dataset import Dataset, FileMetaDataset
 from pydicom.filereader import read_dataset, read_preamble
 from pydicom.uid import DeflatedExplicitVRLittleEndian
 
-from casefile.errors import InputError
+from casefile.errors import InputError, one_line
 from casefile.imaging.limits import NON_PIXEL_BYTES
 
 # Attributes whose presence marks a no-meta file that pydicom parsed with force as a real data set.
@@ -99,8 +99,7 @@ def parse_dicom(data: bytes, name: str, check: HeaderCheck) -> Dataset | None:
         ds = pydicom.dcmread(io.BytesIO(data), force=True)
     except Exception as exc:
         if part10:
-            first = (str(exc).strip().splitlines() or [type(exc).__name__])[0][:120]
-            raise InputError(f"{name}: DICOM file is damaged and cannot be parsed ({first})") from None
+            raise InputError(f"{name}: DICOM file is damaged and cannot be parsed ({one_line(exc, limit=120)})") from None
         return None
     if part10:
         return ds

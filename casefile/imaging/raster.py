@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from PIL import Image, ImageOps
 
-from casefile.errors import InputError
+from casefile.errors import InputError, one_line
 from casefile.imaging.limits import Limits, check_file, check_frame
 from casefile.imaging.scan import Scan, pixel_digest
 
@@ -77,8 +77,7 @@ def load_raster(img: Image.Image, *, name: str, file_sha256: str, frame: int | N
     except InputError:
         raise
     except Exception as exc:
-        text = (str(exc).splitlines() or [type(exc).__name__])[0][:120]
-        raise InputError(f"{name}: {fmt} image cannot be decoded ({text})") from None
+        raise InputError(f"{name}: {fmt} image cannot be decoded ({one_line(exc, limit=120)})") from None
     if arr.ndim != 2 and not (arr.ndim == 3 and arr.shape[2] == 3):
         raise InputError(f"{name}: unexpected image shape {arr.shape}")
     if arr.size == 0:

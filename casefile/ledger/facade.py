@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 from collections.abc import Sequence
 
+from casefile.errors import LedgerError
 from casefile.ledger.keys import KeySource
 from casefile.ledger.report import VerifyReport
 from casefile.ledger.seal import seal
@@ -22,7 +23,24 @@ SealSource = str | os.PathLike[str] | SealFile
 
 
 class Ledger(Store):
-    """An append-only, hash-chained ledger in SQLite, with seals and verify."""
+    """An append-only, hash-chained ledger in SQLite, with seals and verify.
+
+    A ledger whose query tables were made by an older release (they lack a column this release derives)
+    is refused in one line saying to run ``casefile rebuild``, unless ``allow_outdated`` (rebuild itself,
+    and verify, which reports it): reading or appending to it would fail half-way or leave its older
+    cases out of the new columns' filters.
+    """
+
+    def __init__(self, url: str, *, create: bool = True, synchronous: str = "FULL",
+                 allow_outdated: bool = False) -> None:
+        super().__init__(url, create=create, synchronous=synchronous)
+        outdated = [] if allow_outdated else self.outdated_tables()
+        if outdated:
+            self.close()
+            shown = ", ".join(outdated[:4]) + (" ..." if len(outdated) > 4 else "")
+            raise LedgerError(f"{self.path}: query tables made by an older release of casefile lack {shown}; run "
+                              "`casefile rebuild --reason TEXT` once (it recomputes them from the entries, which "
+                              "stay as they are)")
 
     def verify(self, seal: SealSource | None = None, public_key: KeySource | Sequence[KeySource] | None = None,
                *, site_keys: bool = True, unsigned_ok: bool = False, strict: bool = False) -> VerifyReport:

@@ -350,7 +350,7 @@ class Store:
                 select(c.case_id).where(c.case_id >= text, c.case_id < text + "\U0010ffff")
                 .order_by(c.case_id).limit(6))]
         if not found:
-            raise LedgerError(f"{self.path}: no case {text!r} (no case id starts so)")
+            raise LedgerError(f"{self.path}: no case {text!r} (no case id starts with it)")
         if len(found) > 1:
             more = ", …" if len(found) > 5 else ""
             raise LedgerError(f"{self.path}: {text!r} is ambiguous: it starts {'more than 5' if more else len(found)} "

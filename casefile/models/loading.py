@@ -12,7 +12,6 @@ Everything is loaded with map_location="cpu"; state dicts with weights_only=True
 
 from __future__ import annotations
 
-import hashlib
 import warnings
 import zipfile
 from collections.abc import Iterable
@@ -24,7 +23,8 @@ import numpy as np
 import torch
 from torch import nn
 
-from casefile.errors import ModelError
+from casefile.errors import ModelError, one_line
+from casefile.files import sha256_file
 from casefile.models.archive import check_export_archive, check_export_graph
 from casefile.models.card import card_digest, read_card
 from casefile.models.preprocess import preprocess_pixels, roi_mask, rules_record
@@ -80,14 +80,6 @@ class LoadedModel:
 
     def roi_mask(self, h: int, w: int) -> np.ndarray | None:
         return roi_mask(self.card, h, w)
-
-
-def sha256_file(path: Path) -> str:
-    h = hashlib.sha256()
-    with path.open("rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def _is_torchscript(path: Path) -> bool:
@@ -217,7 +209,7 @@ def check_against_card(module: nn.Module, card: dict[str, Any], card_name: str) 
             out = module(x)
     except Exception as exc:
         shape = f"[1, {spec['channels']}, {spec['height']}, {spec['width']}]"
-        msg = str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__
+        msg = one_line(exc, last=True)
         raise ModelError(f"{card_name}: the model fails on a {shape} input as the card describes: {msg}") from None
     finally:
         if handle is not None:

@@ -31,7 +31,7 @@ from typing import Any
 from torch import nn
 
 from casefile import site
-from casefile.errors import ModelError
+from casefile.errors import ModelError, one_line
 
 ENTRY_POINT = re.compile(r"^[A-Za-z_]\w*(\.[A-Za-z_]\w*)*:[A-Za-z_]\w*$", re.ASCII)
 
@@ -50,11 +50,6 @@ def how_to_trust(entry_point: str) -> str:
             "(Python: load_model(..., trusted_entry_points=[...]))")
 
 
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0] if text else type(exc).__name__
-
-
 def resolve_factory(entry_point: str, trusted: Iterable[str], where: str) -> Callable[..., Any]:
     """The factory an entry point names, once it is known to be trusted; every refusal is one line."""
     if not ENTRY_POINT.match(entry_point):
@@ -68,7 +63,7 @@ def resolve_factory(entry_point: str, trusted: Iterable[str], where: str) -> Cal
         mod = importlib.import_module(module_name)
     except Exception as exc:  # a trusted module is still code that can fail: report it in one line
         raise ModelError(f"{where}: cannot import {module_name!r} for entry point {entry_point}: "
-                         f"{_first_line(exc)}") from None
+                         f"{one_line(exc)}") from None
     target = getattr(mod, attr, None)
     if target is None:
         raise ModelError(f"{where}: entry point {entry_point}: {module_name} has no callable {attr!r}")
@@ -108,7 +103,7 @@ def build_module(entry_point: str, args: Any, trusted: Iterable[str], where: str
         module = factory(**kwargs)
     except Exception as exc:
         raise ModelError(f"{where}: entry point {entry_point} failed to build the model: "
-                         f"{_first_line(exc)}") from None
+                         f"{one_line(exc)}") from None
     if not isinstance(module, nn.Module):
         raise ModelError(f"{where}: entry point {entry_point} returned {type(module).__name__}, not a module")
     return module

@@ -14,7 +14,9 @@ def _pct(x: float | None) -> str:
     return "n/a" if x is None else f"{100 * x:.1f} %"
 
 
-def _kappa(k: float | None) -> str:
+def _kappa(k: float | None, n: int) -> str:
+    if n == 0:
+        return "no readings yet"
     return "n/a (undefined: every label the same)" if k is None else f"{k:.3f}"
 
 
@@ -33,19 +35,22 @@ def _ids(ids: list[str]) -> str:
 def _agreement_lines(summary: Mapping[str, Any]) -> list[str]:
     ag = summary["agreement"]
     mv = ag["model_vs_reader"]
-    lines = [f"Cohen's kappa, model vs reader labels: {_kappa(mv['kappa'])} (n = {mv['readings']} readings)"]
+    lines = [f"Cohen's kappa, model vs reader labels: {_kappa(mv['kappa'], mv['readings'])} (n = {mv['readings']} readings)"]
     for p in ag["reader_pairs"]:
-        lines.append(f"Cohen's kappa, {p['readers'][0]} vs {p['readers'][1]}: {_kappa(p['kappa'])} "
+        lines.append(f"Cohen's kappa, {p['readers'][0]} vs {p['readers'][1]}: {_kappa(p['kappa'], p['cases'])} "
                      f"(n = {p['cases']} cases read by both)")
     fl = ag.get("fleiss")
     if fl:
-        kappa = _kappa(fl["kappa"]) if fl["cases"] else "n/a (no case labelled by all of them)"
+        kappa = _kappa(fl["kappa"], fl["cases"]) if fl["cases"] else "n/a (no case labelled by all of them)"
         lines.append(f"Fleiss' kappa, {', '.join(fl['readers'])}: {kappa} "
                      f"(n = {fl['cases']} cases labelled by all {len(fl['readers'])} readers)")
     rc = summary.get("reader_conflicts")
     if rc and rc["cases"]:
         lines.append(f"Readers disagree with each other on {len(rc['cases'])} case(s); "
                      f"{len(rc['adjudicated'])} adjudicated" + (f"; open: {_ids(rc['open'])}" if rc["open"] else ""))
+    rel = summary.get("reliability")
+    if rel is not None:
+        lines.append(_reliability_line(rel))
     conf = ag["confusion"]
     if conf["labels"]:
         width = max(len(x) for x in [*conf["labels"], "model \\ reader"]) + 2
@@ -54,6 +59,13 @@ def _agreement_lines(summary: Mapping[str, Any]) -> list[str]:
         for m in conf["labels"]:
             lines.append(m.ljust(width) + "".join(str(conf["rows"][m][r]).rjust(width) for r in conf["labels"]))
     return lines
+
+
+def _reliability_line(rel: Mapping[str, Any]) -> str:
+    if rel["ece"] is None:
+        return "Confidence against readers: no agree or disagree readings yet"
+    return (f"Confidence against readers: expected calibration error {rel['ece']:.3f} over {len(rel['bins'])} "
+            f"equal-width bins (n = {rel['n']} readings; agreement with readers, not accuracy)")
 
 
 def _stratum_line(s: Mapping[str, Any]) -> str:

@@ -21,7 +21,6 @@ CAUTION_INK = (0.62, 0.22, 0.0)  # short cautions beside a value: a dark orange,
 ROI_INK = (0.80, 0.0, 0.55)
 
 OUTCOME_WORDS = {"pass": "pass", "warn": "warn", "fail": "fail", "not-run": "not run"}
-OUTCOME_RANK = {"pass": 0, "not-run": 1, "warn": 2, "fail": 3}
 
 
 def _break_long(line: str, font: str, size: float, width: float) -> list[str]:

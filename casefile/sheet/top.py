@@ -8,13 +8,14 @@ from typing import Any
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 
+from casefile.flags import worst
+
 from . import words
 from .draw import (
     BAND,
     CAUTION_INK,
     GREY,
     INK,
-    OUTCOME_RANK,
     OUTCOME_WORDS,
     RULE,
     Block,
@@ -175,7 +176,7 @@ def _class_count(case: dict) -> int | None:
 
 
 def title_block(case: dict, fonts: FontSet, width: float) -> Block:
-    status = str(case.get("status") or worst(case))
+    status = str(case.get("status") or worst(str(ch.get("outcome")) for ch in case.get("checks") or []))
 
     def draw(c: Canvas, x: float, y: float) -> None:
         text_line(c, x, y - 16, "Case sheet", fonts.bold, 17)
@@ -194,8 +195,3 @@ def title_block(case: dict, fonts: FontSet, width: float) -> Block:
         c.line(x, y - 37, x + width, y - 37)
 
     return Block(42, draw)
-
-
-def worst(case: dict) -> str:
-    outs = [str(ch.get("outcome")) for ch in case.get("checks") or []]
-    return max(outs, key=lambda o: OUTCOME_RANK.get(o, 3)) if outs else "not-run"

@@ -14,7 +14,7 @@ import torch
 
 from casefile.errors import ExplainError
 from casefile.explain import DEFAULT_SETTINGS, run
-from casefile.explain.run import worst
+from casefile.flags import worst
 
 from .conftest import ROI, TinyNet
 

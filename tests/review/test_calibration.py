@@ -73,3 +73,17 @@ def test_summarise_carries_the_reliability_of_the_ledgers_readings(ledger):
     # every fixture case has confidence 0.8: one bin [0.8, 0.9) with one agree of two -> |0.5 - 0.8|
     assert r["n"] == 2 and r["ece"] == pytest.approx(0.3)
     assert [b["n"] for b in r["bins"]][8] == 2
+
+
+def test_the_stats_text_prints_the_calibration_error_and_no_kappa_without_readings(ledger):
+    from casefile.review.readings import record_review
+    from casefile.review.stats import summarise
+    from casefile.review.text import format_text
+
+    empty = format_text(summarise(ledger))
+    assert "model vs reader labels: no readings yet (n = 0 readings)" in empty
+    assert "Confidence against readers: no agree or disagree readings yet" in empty
+    record_review(ledger, "rv-00001", reader="dr-a", verdict="agree")
+    record_review(ledger, "rv-00002", reader="dr-a", verdict="disagree")
+    text = format_text(summarise(ledger))
+    assert "expected calibration error 0.300 over 10 equal-width bins (n = 2 readings" in text
