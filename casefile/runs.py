@@ -128,7 +128,7 @@ def _check_mode(run: RunSettings) -> None:
     if mode is not None and mode not in MODES:
         raise UsageError(f"--occlusion-mode {mode!r}: choose one of {', '.join(MODES)}")
     if run.fidelity is not None:
-        if (mode or "incremental") in EXACT_MODES:
+        if (mode or "auto") in EXACT_MODES:
             raise UsageError(f"--fidelity {run.fidelity!r}: only an approximate --occlusion-mode (truncated or "
                              "coarse-to-fine) takes a fidelity; the exact modes compute every position in full")
         f = run.fidelity

@@ -12,6 +12,7 @@ from casefile.runs import DEFAULT_METHODS, NAME_POLICIES
 if TYPE_CHECKING:
     from casefile.pipeline import Outcome, RunSettings
 
+OCCLUSION_MODES = ("auto", "incremental", "batched", "truncated", "coarse-to-fine")  # explain.occlusion.MODES
 METHOD_NAMES = DEFAULT_METHODS  # casefile.explain.METHODS, without importing torch; checked equal by a test
 
 
@@ -138,10 +139,11 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--stride", type=positive_int, metavar="N", help="occlusion stride (default: half the patch)")
     sp.add_argument("--fill", metavar="V", type=_fill, help="occlusion fill: a number (default 0, the "
                     "normalised mean), 'mean' or 'blur'")
-    sp.add_argument("--occlusion-mode", choices=["incremental", "batched", "truncated", "coarse-to-fine"],
-                    help="how occlusion is computed: incremental (default; exact, each covered image as a change "
-                         "to one cached run), batched (exact, one forward pass per position), or the approximate "
-                         "truncated and coarse-to-fine, recorded and shown as approximate")
+    sp.add_argument("--occlusion-mode", choices=OCCLUSION_MODES,
+                    help="how occlusion is computed: auto (default; incremental for a model of 100 million "
+                         "multiply-adds per image or more, else batched), incremental (exact, each covered image "
+                         "as a change to one cached run), batched (exact, one forward pass per position), or the "
+                         "approximate truncated and coarse-to-fine, recorded and shown as approximate")
     sp.add_argument("--fidelity", type=float, metavar="F",
                     help="for an approximate --occlusion-mode, how much is computed (above 0, at most 1): the "
                          "share of each map kept around the patch (truncated, default 0.5) or of the finer "

@@ -13,10 +13,12 @@ Default settings (:data:`DEFAULT_SETTINGS`) and why:
   does not saturate and is offered. ``occlusion_batch_size`` 64: on a ResNet-18-shaped model at
   224 px on 2 shared cores, batch 64 cost about 110 ms per image against 390-590 ms one at a time,
   and bounds memory on a workstation CPU.
-- ``occlusion_mode`` "incremental": exact (equal to one forward pass per position up to float
-  rounding, tested on many architectures) and several times faster on a CPU, because each covered image
-  is computed as a change to one cached run (``casefile.explain.incremental``); a model that cannot be
-  traced is run by "batched" and the map's record says so. "truncated" and "coarse-to-fine" are
+- ``occlusion_mode`` "auto": "incremental" for a model of at least 100 million multiply-adds per image,
+  else "batched". "incremental" is exact (equal to one forward pass per position up to float rounding,
+  tested on many architectures) and faster on a CPU for such models, because each covered image is
+  computed as a change to one cached run (``casefile.explain.incremental``); on a model of a few million
+  multiply-adds the windows are so small that the plain method is as fast. A model that cannot be
+  traced is run by "batched"; the map's record says which was used and why. "truncated" and "coarse-to-fine" are
   approximate, recorded as such with their ``occlusion_fidelity`` (default 0.5 and 0.25), and never the
   default: a reviewer must know when a map is an estimate.
 - ``randomisation_method``, ``deletion_method``, ``focus_method`` "gradcam": the map the checks are
@@ -62,7 +64,7 @@ DEFAULT_SETTINGS: dict[str, Any] = {
     "occlusion_output": "probability",
     "occlusion_batch_size": 64,
     "occlusion_blur_sigma": None,
-    "occlusion_mode": "incremental",
+    "occlusion_mode": "auto",
     "occlusion_fidelity": None,
     "randomisation_method": "gradcam",
     "deletion_method": "gradcam",

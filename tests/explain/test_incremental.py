@@ -205,7 +205,8 @@ def test_approximate_modes_say_they_are_approximate():
 
 
 @pytest.mark.parametrize(("kwargs", "words"), [
-    ({"mode": "fast"}, "occlusion mode: 'fast' is not one of incremental, batched"),
+    ({"mode": "fast"}, "occlusion mode: 'fast' is not one of auto, incremental, batched"),
+    ({"mode": "batched", "fidelity": 0.5}, "batched is exact and takes no fidelity"),
     ({"mode": "truncated", "fidelity": 0}, "occlusion fidelity: 0 is not a number above 0"),
     ({"mode": "truncated", "fidelity": 1.5}, "at most 1"),
 ])
@@ -323,3 +324,17 @@ def test_work_share_of_a_plain_module_is_below_one():
     torch.manual_seed(21)
     r = check_exact(_randomise_bn(SmallResNet18(), 22), torch.randn(1, 3, 64, 64), patch=8, stride=8)
     assert 0 < r.work_share < 0.8
+
+
+def test_auto_computes_incrementally_only_for_a_model_big_enough_to_gain(monkeypatch):
+    import casefile.explain.occlusion as occ
+
+    torch.manual_seed(23)
+    net, x = _randomise_bn(Plain(), 24), torch.randn(1, 3, 30, 30)
+    small = occlusion(net, x, 0, patch=6, stride=3, return_all=True)  # default mode: auto
+    assert small.mode == "batched" and small.exact
+    assert "million multiply-adds per image, below the 100 million" in small.notes[0]
+    monkeypatch.setattr(occ, "AUTO_MIN_MACS", 1)
+    big = occlusion(net, x, 0, patch=6, stride=3, return_all=True)
+    assert big.mode == "incremental" and big.notes == []
+    np.testing.assert_allclose(big.grid_probability, small.grid_probability, atol=1e-5)

@@ -221,15 +221,19 @@ def test_the_record_says_how_occlusion_was_computed_and_an_approximate_map_says_
     free = load_model(tiny["weights"], tiny["card"], trusted_entry_points=TRUSTED)
     led = Ledger(str(tmp_path / "l.db"))
     path = str(tiny["inputs"] / "part_0001.png")
-    exact = record_case(led, free, path, run=RUN, key=str(tmp_path / "k"))
+    default = record_case(led, free, path, run=RUN, key=str(tmp_path / "k"))
+    exact = record_case(led, free, path, run=RunSettings(patch=8, stride=4, occlusion_mode="incremental"),
+                        key=str(tmp_path / "k"))
     approx = record_case(led, free, path, run=RunSettings(patch=8, stride=4, occlusion_mode="coarse-to-fine"),
                          key=str(tmp_path / "k"))
     params = {o.case_id: next(m for m in o.body["maps"] if m["method"] == "occlusion")["params"]
-              for o in (exact, approx)}
-    e, a = params[exact.case_id], params[approx.case_id]
+              for o in (default, exact, approx)}
+    d, e, a = params[default.case_id], params[exact.case_id], params[approx.case_id]
+    # the tiny test model is far below the size where windows save time: auto runs the plain method
+    assert (d["mode"], d["exact"]) == ("batched", True) and "million multiply-adds per image" in d["notes"][0]
+    assert default.body["settings"]["explain"]["occlusion_mode"] == "auto"
     assert (e["mode"], e["exact"], e["fidelity"], e["notes"]) == ("incremental", True, None, [])
     assert (a["mode"], a["exact"], a["fidelity"]) == ("coarse-to-fine", False, 0.25)
     assert "interpolated from the coarse map" in a["summary"]
-    assert exact.body["settings"]["explain"]["occlusion_mode"] == "incremental"
     text = " ".join(p.extract_text() for p in PdfReader(write_sheet(led, approx.case_id, path=tmp_path / "a.pdf")).pages)
     assert "approximate map (coarse to fine, fidelity 0.25)" in " ".join(text.split())
