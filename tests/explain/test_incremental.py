@@ -327,8 +327,9 @@ def test_work_share_of_a_plain_module_is_below_one():
 
 
 def test_auto_computes_incrementally_only_for_a_model_big_enough_to_gain(monkeypatch):
-    import casefile.explain.occlusion as occ
+    import importlib
 
+    occ = importlib.import_module("casefile.explain.occlusion")  # the module (the package exports the function)
     torch.manual_seed(23)
     net, x = _randomise_bn(Plain(), 24), torch.randn(1, 3, 30, 30)
     small = occlusion(net, x, 0, patch=6, stride=3, return_all=True)  # default mode: auto
