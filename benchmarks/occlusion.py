@@ -104,8 +104,10 @@ def bench(size: int, patch: int, stride: int) -> None:
     plan = trace(net, x)
     boxes = [(r, c, patch, patch) for r in positions(size, patch, stride) for c in positions(size, patch, stride)]
     limit = n * plan.macs_full / projective_macs(plan, boxes)
+    cache = sum(v.numel() * v.element_size() for v in plan.base.values() if isinstance(v, torch.Tensor))
     print(f"\nResNet-18 shape, {size} x {size}, patch {patch}, stride {stride}: {n} positions, "
-          f"{plan.macs_full / 1e9:.2f} GMAC per forward pass")
+          f"{plan.macs_full / 1e9:.2f} GMAC per forward pass; cached run {cache / 2**20:.0f} MiB "
+          f"(every layer's output for the one clean image, weights included)")
     t_naive = naive_seconds(net, x, patch, stride)
     results = {mode: _run(size, patch, stride, mode) for mode in MODES}
     t_batch = results["batched"][0]
