@@ -29,7 +29,7 @@ lint: $(STAMP)
 	$(BIN)/ruff check casefile tests benchmarks demo_cases
 
 bench: $(STAMP)
-	for f in benchmarks/bench_*.py; do $(BIN)/python $$f || exit 1; done
+	for f in benchmarks/bench_*.py benchmarks/occlusion.py; do $(BIN)/python $$f || exit 1; done
 
 clean:
 	rm -rf $(VENV) demo_out casefile.db casefile.db-wal casefile.db-shm

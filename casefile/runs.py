@@ -38,6 +38,8 @@ class RunSettings:
     patch: int | None = None
     stride: int | None = None
     fill: float | str | None = None
+    occlusion_mode: str | None = None
+    fidelity: float | None = None
     explain: dict[str, Any] = field(default_factory=dict)
     frame: int | None = None
     uid_policy: str = "keep-uids"
@@ -69,6 +71,10 @@ class RunSettings:
             overrides["flag_policy"] = {**loaded.card["flag_policy"], **self.explain.get("flag_policy", {})}
         if self.fill is not None:
             overrides["occlusion_fill"] = self.fill
+        if self.occlusion_mode is not None:
+            overrides["occlusion_mode"] = self.occlusion_mode
+        if self.fidelity is not None:
+            overrides["occlusion_fidelity"] = self.fidelity
         return {
             "methods": list(self.methods),
             "layer": self.layer or loaded.layer,
@@ -115,6 +121,21 @@ def _check_fill(fill: object) -> None:
         raise UsageError(f"--fill {fill!r}: expected a finite number, 'mean' or 'blur'")
 
 
+def _check_mode(run: RunSettings) -> None:
+    from casefile.explain.occlusion import EXACT_MODES, MODES
+
+    mode = run.occlusion_mode
+    if mode is not None and mode not in MODES:
+        raise UsageError(f"--occlusion-mode {mode!r}: choose one of {', '.join(MODES)}")
+    if run.fidelity is not None:
+        if (mode or "auto") in EXACT_MODES:
+            raise UsageError(f"--fidelity {run.fidelity!r}: only an approximate --occlusion-mode (truncated or "
+                             "coarse-to-fine) takes a fidelity; the exact modes compute every position in full")
+        f = run.fidelity
+        if isinstance(f, bool) or not isinstance(f, int | float) or not 0 < float(f) <= 1:
+            raise UsageError(f"--fidelity {f!r}: expected a number above 0 and at most 1")
+
+
 def preflight(loaded: LoadedModel, run: RunSettings) -> dict[str, Any]:
     """Refuse, before any input is touched, a run that cannot work for this model at all; return the
     resolved settings (unknown explanation settings fail here, once, not per input)."""
@@ -131,6 +152,7 @@ def preflight(loaded: LoadedModel, run: RunSettings) -> dict[str, Any]:
         raise UsageError(f"--frame {run.frame!r}: expected a frame number from 0")
     check_occlusion_grid(loaded, run)
     _check_fill(run.fill)
+    _check_mode(run)
     settings = run.resolve(loaded)
     if "gradcam" in run.methods:
         try:

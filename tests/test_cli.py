@@ -15,9 +15,10 @@ from pathlib import Path
 import pytest
 
 from casefile.cli import build_parser
-from casefile.cli.case_cmds import METHOD_NAMES
+from casefile.cli.case_cmds import METHOD_NAMES, OCCLUSION_MODES
 from casefile.cli.common import since_time, until_time
 from casefile.explain import METHODS
+from casefile.explain.occlusion import MODES
 from casefile.ledger import Ledger
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -48,6 +49,7 @@ def head(path: Path) -> int:
 
 def test_method_names_are_the_explain_rooms():
     assert tuple(METHOD_NAMES) == tuple(METHODS)
+    assert OCCLUSION_MODES == MODES
 
 
 @pytest.mark.parametrize("args, flag", [

@@ -22,6 +22,7 @@ from casefile.runs import DEFAULT_METHODS, NAME_POLICIES
 if TYPE_CHECKING:
     from casefile.pipeline import Outcome, RunSettings
 
+OCCLUSION_MODES = ("auto", "incremental", "batched", "truncated", "coarse-to-fine")  # explain.occlusion.MODES
 METHOD_NAMES = DEFAULT_METHODS  # casefile.explain.METHODS, without importing torch; checked equal by a test
 
 
@@ -48,7 +49,8 @@ def _run_settings(args: argparse.Namespace) -> RunSettings:
     from casefile.pipeline import RunSettings
 
     return RunSettings(methods=args.methods, layer=args.layer, patch=args.patch, stride=args.stride,
-                       fill=args.fill, frame=args.frame, uid_policy=args.uid_policy, max_pixels=args.max_pixels,
+                       fill=args.fill, occlusion_mode=args.occlusion_mode, fidelity=args.fidelity,
+                       frame=args.frame, uid_policy=args.uid_policy, max_pixels=args.max_pixels,
                        max_file_pixels=args.max_file_pixels, name_policy=args.name_policy)
 
 
@@ -156,6 +158,15 @@ def register(sub: argparse._SubParsersAction) -> None:
     sp.add_argument("--stride", type=positive_int, metavar="N", help="occlusion stride (default: half the patch)")
     sp.add_argument("--fill", metavar="V", type=_fill, help="occlusion fill: a number (default 0, the "
                     "normalised mean), 'mean' or 'blur'")
+    sp.add_argument("--occlusion-mode", choices=OCCLUSION_MODES,
+                    help="how occlusion is computed: auto (default; incremental for a model of 100 million "
+                         "multiply-adds per image or more, else batched), incremental (exact, each covered image "
+                         "as a change to one cached run), batched (exact, one forward pass per position), or the "
+                         "approximate truncated and coarse-to-fine, recorded and shown as approximate")
+    sp.add_argument("--fidelity", type=float, metavar="F",
+                    help="for an approximate --occlusion-mode, how much is computed (above 0, at most 1): the "
+                         "share of each map kept around the patch (truncated, default 0.5) or of the finer "
+                         "positions computed (coarse-to-fine, default 0.25)")
     sp.add_argument("--frame", type=non_negative_int, metavar="N",
                     help="frame of a multi-frame DICOM file (0-based)")
     sp.add_argument("--uid-policy", choices=["keep-uids", "drop-uids"], default="keep-uids",

@@ -127,7 +127,7 @@ def params(method: str, p: Any) -> list[str]:
     """The parameters of one map as short sentences, e.g. ``patch 16 px, stride 8 px, fill: blur σ 4 px``.
 
     Known keys get words and units; any other key is printed as ``key value``. An approximate map
-    (``exact`` false) always says so, with its fidelity setting (``mode``) and its own summary.
+    (``exact`` false) always says so, with its mode, fidelity setting and its own summary.
     """
     if not isinstance(p, Mapping) or not p:
         return ["no parameters recorded"]
@@ -140,7 +140,7 @@ def params(method: str, p: Any) -> list[str]:
         more.append(f"patch used {_px(used)}")  # shown only when it differs from the patch asked for
     more += [say(p[k]) for k, say in _MORE if k in p]
     done = {k for k, _ in (*_FIRST, *_MORE)} | _NOT_PRINTED | {"mode", "exact", "summary", "fill", "blur_sigma",
-                                                               "patch_used"}
+                                                               "patch_used", "fidelity", "notes"}
     rest = [(k, v) for k, v in p.items() if k not in done]
     if rest:
         more.append(pairs(rest))
@@ -149,18 +149,31 @@ def params(method: str, p: Any) -> list[str]:
     return lines or ["no parameters recorded"]
 
 
+_MODE_WORDS = {
+    "incremental": "computed incrementally, as changes to one cached run",
+    "batched": "one forward pass per position",
+    "truncated": "projective fields truncated",
+    "coarse-to-fine": "coarse to fine",
+}
+
+
 def fidelity(p: Mapping[str, Any]) -> list[str]:
-    """``exact`` / ``mode`` / ``summary`` of a map in words; nothing when the record has none of them."""
+    """``exact`` / ``mode`` / ``fidelity`` / ``summary`` / ``notes`` of a map in words; nothing when the
+    record has none of them. An approximate map always says so."""
     exact, mode, summary = p.get("exact"), p.get("mode"), p.get("summary")
-    mode_text = f"fidelity setting {key_words(mode)}" if mode not in (None, "") else ""
+    bits = [_MODE_WORDS.get(str(mode), key_words(mode))] if mode not in (None, "") else []
+    if p.get("fidelity") is not None:
+        bits.append(f"fidelity {value(p['fidelity'])}")
+    inner = f" ({', '.join(bits)})" if bits else ""
     if exact is False:
-        head = "approximate map" + (f" ({mode_text})" if mode_text else " (fidelity setting not recorded)")
-        return [head + (f": {summary}" if summary else "")]
-    if exact is True:
-        return ["exact map" + (f" ({mode_text})" if mode_text else "")]
-    out = [mode_text] if mode_text else []
-    if summary:
-        out.append(str(summary))
+        out = ["approximate map" + (inner or " (fidelity setting not recorded)") + (f": {summary}" if summary else "")]
+    elif exact is True:
+        out = ["exact map" + inner]
+    else:
+        out = ([", ".join(bits)] if bits else []) + ([str(summary)] if summary else [])
+    notes = p.get("notes")
+    if isinstance(notes, list | tuple):
+        out.extend(str(n) for n in notes if n)
     return out
 
 

@@ -132,6 +132,9 @@ def test_a_fixed_batch_model_is_explained_one_image_at_a_time_and_the_record_say
     (["--stride", "9"], "--stride"),           # larger than the default patch (32 / 7 -> 5 px)
     (["--frame", "-1"], "--frame"),
     (["--name-policy", "initials"], "--name-policy"),
+    (["--occlusion-mode", "fast"], "--occlusion-mode"),
+    (["--fidelity", "0.5"], "--fidelity"),  # the default mode is exact and takes no fidelity
+    (["--occlusion-mode", "truncated", "--fidelity", "1.5"], "--fidelity"),
 ])
 def test_options_that_cannot_work_with_the_model_are_usage_errors_before_any_write(tiny, tmp_path, args, flag):
     store = _store(tmp_path)
@@ -212,3 +215,25 @@ def test_a_card_can_ask_for_digest_names(tiny, tmp_path):
     out = record_case(led, loaded, str(person), run=RunSettings(patch=8, stride=4, name_policy="base-name"),
                       key=str(tmp_path / "k"))
     assert out.body["input"]["file_name"] == "sha256:" + _sha(person)[:16]
+
+
+def test_the_record_says_how_occlusion_was_computed_and_an_approximate_map_says_so(tiny, tmp_path):
+    free = load_model(tiny["weights"], tiny["card"], trusted_entry_points=TRUSTED)
+    led = Ledger(str(tmp_path / "l.db"))
+    path = str(tiny["inputs"] / "part_0001.png")
+    default = record_case(led, free, path, run=RUN, key=str(tmp_path / "k"))
+    exact = record_case(led, free, path, run=RunSettings(patch=8, stride=4, occlusion_mode="incremental"),
+                        key=str(tmp_path / "k"))
+    approx = record_case(led, free, path, run=RunSettings(patch=8, stride=4, occlusion_mode="coarse-to-fine"),
+                         key=str(tmp_path / "k"))
+    params = {o.case_id: next(m for m in o.body["maps"] if m["method"] == "occlusion")["params"]
+              for o in (default, exact, approx)}
+    d, e, a = params[default.case_id], params[exact.case_id], params[approx.case_id]
+    # the tiny test model is far below the size where windows save time: auto runs the plain method
+    assert (d["mode"], d["exact"]) == ("batched", True) and "million multiply-adds per image" in d["notes"][0]
+    assert default.body["settings"]["explain"]["occlusion_mode"] == "auto"
+    assert (e["mode"], e["exact"], e["fidelity"], e["notes"]) == ("incremental", True, None, [])
+    assert (a["mode"], a["exact"], a["fidelity"]) == ("coarse-to-fine", False, 0.25)
+    assert "interpolated from the coarse map" in a["summary"]
+    text = " ".join(p.extract_text() for p in PdfReader(write_sheet(led, approx.case_id, path=tmp_path / "a.pdf")).pages)
+    assert "approximate map (coarse to fine, fidelity 0.25)" in " ".join(text.split())

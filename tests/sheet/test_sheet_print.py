@@ -130,8 +130,8 @@ def test_roi_words_in_the_legend(fx):
 
 
 BLUR_APPROX = {"patch": 16, "stride": 8, "fill": "blur", "blur_sigma": None, "grid": [4, 4], "output": "logit",
-               "patch_used": [16, 16], "batch_size": 64, "batch_size_used": 16, "exact": False, "mode": "coarse",
-               "summary": "patches were scored on a coarser grid than asked, to save time"}
+               "patch_used": [16, 16], "batch_size": 64, "batch_size_used": 16, "exact": False, "mode": "coarse-to-fine",
+               "fidelity": 0.25, "summary": "patches were scored on a coarser grid than asked, to save time"}
 
 
 def _fixture_sheets(fx) -> list[bytes]:
@@ -169,7 +169,7 @@ def test_no_braces_or_none_in_real_case_sheets(real_ledger):
 def test_approximate_map_caption_and_dict_threshold(fx):
     text = _flat(_fixture_sheets(fx)[0])
     assert "Occlusion sensitivity, approximate" in text
-    assert "approximate map (fidelity setting coarse)" in text
+    assert "approximate map (coarse to fine, fidelity 0.25)" in text
     assert "fill: blur σ 4 px (a quarter of the patch)" in text
     assert "pass 0.5, fail 0.7" in text
 

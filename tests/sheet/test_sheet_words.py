@@ -51,13 +51,17 @@ def test_a_clipped_patch_is_shown_and_unknown_keys_are_key_value_pairs():
 
 
 def test_approximate_maps_say_so_with_their_fidelity_setting_in_words():
-    lines = words.params("occlusion", {**OCCLUSION, "exact": False, "mode": "coarse_grid",
-                                       "summary": "computed on a grid twice as coarse as asked"})
+    lines = words.params("occlusion", {**OCCLUSION, "exact": False, "mode": "coarse-to-fine", "fidelity": 0.25,
+                                       "summary": "the rest interpolated from the coarse map"})
     text = " ".join(lines)
-    assert "approximate map (fidelity setting coarse grid): computed on a grid twice as coarse as asked" in text
-    assert "exact map (fidelity setting full)" in " ".join(words.params("occlusion", {**OCCLUSION, "exact": True,
-                                                                                      "mode": "full"}))
-    assert "approximate" in " ".join(words.params("occlusion", {"exact": False}))
+    assert "approximate map (coarse to fine, fidelity 0.25): the rest interpolated from the coarse map" in text
+    exact = " ".join(words.params("occlusion", {**OCCLUSION, "exact": True, "mode": "incremental"}))
+    assert "exact map (computed incrementally, as changes to one cached run)" in exact
+    assert "approximate map (fidelity setting not recorded)" in " ".join(words.params("occlusion", {"exact": False}))
+    noted = words.params("occlusion", {**OCCLUSION, "exact": True, "mode": "batched",
+                                       "notes": ["computed by the plain batched method: the model could not be traced"]})
+    assert noted[-2:] == ["exact map (one forward pass per position)",
+                          "computed by the plain batched method: the model could not be traced"]
 
 
 def test_gradcam_and_gradient_parameters():
