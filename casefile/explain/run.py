@@ -10,9 +10,10 @@ Default settings (:data:`DEFAULT_SETTINGS`) and why:
   information" rather than black or white; "mean" (per-channel mean of this image) and "blur" (a
   Gaussian-blurred copy, sigma = patch / 4 unless ``occlusion_blur_sigma`` is set) are offered.
 - ``occlusion_output`` "probability": a drop in probability is what a reader understands; "logit"
-  does not saturate and is offered. ``occlusion_batch_size`` 64: on a ResNet-18-shaped model at
-  224 px on 2 shared cores, batch 64 cost about 110 ms per image against 390-590 ms one at a time,
-  and bounds memory on a workstation CPU.
+  does not saturate and is offered. ``occlusion_batch_size`` 64: the most positions computed at once
+  (it bounds memory); the plain method further keeps each batch within 8 x 224 x 224 pixels, because
+  on a quiet two-core machine a ResNet-18 shape cost 26 ms an image in batches of 8 at 224 px against
+  37 ms in batches of 64, and at 512 px one image at a time was fastest (``occlusion.PIXELS_PER_BATCH``).
 - ``occlusion_mode`` "auto": "incremental" for a model of at least 100 million multiply-adds per image,
   else "batched". "incremental" is exact (equal to one forward pass per position up to float rounding,
   tested on many architectures) and faster on a CPU for such models, because each covered image is
