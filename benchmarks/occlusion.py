@@ -8,7 +8,8 @@ rank correlation (scipy.stats.spearmanr) of the map against the exact one and th
 pixels. Peak memory of each mode: the growth of the peak resident set of a process of its own running
 it (from just before the call to its end).
 
-Run: ``python benchmarks/occlusion.py`` (about 10 minutes on two cores; ``--quick`` runs 224 px only).
+Run: ``python benchmarks/occlusion.py`` (about 10 minutes on two cores; ``--quick`` runs 224 px only,
+``--large`` the 512 px setting only).
 """
 
 from __future__ import annotations
@@ -174,9 +175,10 @@ def main() -> None:
         _one(size, patch, stride, sys.argv[5], sys.argv[6])
         return
     print(f"torch {torch.__version__}, {torch.get_num_threads()} threads, {os.cpu_count()} CPUs")
-    trained()
-    bench(224, 32, 16)
-    bench(224, 16, 8)
+    if "--large" not in sys.argv:
+        trained()
+        bench(224, 32, 16)
+        bench(224, 16, 8)
     if "--quick" not in sys.argv:
         bench(512, 32, 16)
 
