@@ -133,22 +133,31 @@ positive_int = whole_number(1)
 non_negative_int = whole_number(0)
 
 
-def positive_float(text: str) -> float:
-    """An option type: a finite number above zero (seconds, for instance)."""
+def _number(text: str) -> float:
     try:
-        value = float(text)
+        return float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+
+
+def positive_float(text: str) -> float:
+    """An option type: a finite number above zero (seconds, for instance)."""
+    value = _number(text)
     if not value > 0 or value == float("inf"):
         raise argparse.ArgumentTypeError(f"{text!r} must be a finite number above 0")
     return value
 
 
+def non_negative_float(text: str) -> float:
+    """An option type: a finite number of at least zero (a tolerance, for instance)."""
+    value = _number(text)
+    if not value >= 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"{text!r} must be a finite number of at least 0")
+    return value
+
+
 def share(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    value = _number(text)
     if not 0.0 <= value <= 1.0:
         raise argparse.ArgumentTypeError(f"{text!r} must lie between 0 and 1")
     return value

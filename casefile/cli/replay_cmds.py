@@ -4,7 +4,17 @@ from __future__ import annotations
 
 import argparse
 
-from casefile.cli.common import CASE_ID_HELP, command, err, jsonl, open_ledger, share, since_time, until_time
+from casefile.cli.common import (
+    CASE_ID_HELP,
+    command,
+    err,
+    jsonl,
+    non_negative_float,
+    open_ledger,
+    share,
+    since_time,
+    until_time,
+)
 from casefile.tolerances import CONFIDENCE_ABS, MAP_MAX_ABS_REL, MAP_SPEARMAN_MIN, Tolerances
 
 
@@ -55,16 +65,6 @@ def _replay_usage(args: argparse.Namespace) -> str | None:
     return None
 
 
-def _tolerance(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
-    if not value >= 0 or value == float("inf"):
-        raise argparse.ArgumentTypeError(f"{text!r} must be a finite number of at least 0")
-    return value
-
-
 def _intermix(sp: argparse.ArgumentParser) -> None:
     """Let ``sp`` take positionals on both sides of its options (``CASE_ID --model M --card C INPUT``):
     the call its parent makes goes through argparse's intermixed parsing, which itself calls the plain
@@ -105,10 +105,10 @@ def register(sub: argparse._SubParsersAction) -> None:
                     help="replay every case of this model (optionally --since/--until) whose input is in FOLDER")
     sp.add_argument("--since", metavar="T", type=since_time, help="with --all: cases recorded at or after T")
     sp.add_argument("--until", metavar="T", type=until_time, help="with --all: cases recorded at or before T")
-    sp.add_argument("--confidence-tolerance", type=_tolerance, default=CONFIDENCE_ABS, metavar="X",
+    sp.add_argument("--confidence-tolerance", type=non_negative_float, default=CONFIDENCE_ABS, metavar="X",
                     help=f"largest absolute confidence difference that still reproduces (default {CONFIDENCE_ABS:g})")
     sp.add_argument("--map-rho", type=share, default=MAP_SPEARMAN_MIN, metavar="R",
                     help=f"smallest Spearman rho between a recorded and a replayed map (default {MAP_SPEARMAN_MIN:g})")
-    sp.add_argument("--map-difference", type=_tolerance, default=MAP_MAX_ABS_REL, metavar="D",
+    sp.add_argument("--map-difference", type=non_negative_float, default=MAP_MAX_ABS_REL, metavar="D",
                     help="largest absolute map difference, as a share of the recorded map's largest value "
                          f"(default {MAP_MAX_ABS_REL:g})")

@@ -312,7 +312,6 @@ class Runner:
         self.plan = plan
         self.gm = plan.graph
         self.truncate_share = truncate_share
-        self.full_from: set[str] = set()  # nodes computed in full maps, for the record
         self.macs_done = 0
 
     def _cut(self, regions: list, shape: torch.Size) -> list:
@@ -398,7 +397,6 @@ class Runner:
             out = n.target(*fa, **fk)  # type: ignore[operator]
         self.macs_done += macs(self.gm, n, self.plan.base) * _batch(fa[0] if fa else None)
         if any(isinstance(a, (Patched, Full)) for a in _flat(args)):
-            self.full_from.add(n.name)
             return Full(out)
         return out  # plain values (shapes, numbers) that depend on the batch
 

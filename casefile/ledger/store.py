@@ -22,7 +22,7 @@ from sqlalchemy.sql.elements import ColumnElement
 
 from casefile import schemas
 from casefile.canonical import canonical_bytes, parse
-from casefile.errors import DuplicateCaseError, LedgerError, ValidationError
+from casefile.errors import DuplicateCaseError, LedgerError, ValidationError, one_line
 from casefile.ledger import tables as t
 from casefile.ledger.derive import derive, run_key
 from casefile.ledger.engines import Flavour, flavour
@@ -420,8 +420,7 @@ class Store:
 
 def _first_line(exc: DatabaseError) -> str:
     """The database's own message, first line only (PostgreSQL adds CONTEXT lines after it)."""
-    text = str(exc.orig if exc.orig is not None else exc).strip()
-    return text.splitlines()[0] if text else type(exc).__name__
+    return one_line(exc.orig if exc.orig is not None else exc, limit=500)
 
 
 def model_condition(model: str) -> ColumnElement[bool]:
