@@ -9,7 +9,6 @@ Medians and minimums are both printed: on a shared machine the minimum says more
 
 from __future__ import annotations
 
-import json
 import statistics
 import sys
 import tempfile
@@ -17,15 +16,14 @@ import time
 from pathlib import Path
 
 import numpy as np
-import torch
 from PIL import Image
+from tiny_model import write_tiny_model  # beside this file
 
 from casefile.ledger import Ledger
 from casefile.models import load_model
 from casefile.pipeline import RunSettings, explain_one
 from casefile.replay import replay_case, replay_loaded
 from casefile.tolerances import Tolerances
-from demo_cases.nets import tiny_net
 from demo_cases.train import ENTRY_POINT
 
 GOAL = 1.2
@@ -33,14 +31,7 @@ TRUSTED = (ENTRY_POINT,)
 
 
 def _setup(d: Path) -> tuple[Path, Path, list[Path]]:
-    torch.manual_seed(1)
-    torch.save(tiny_net(width=4).eval().state_dict(), d / "net.pt")
-    card = {"name": "bench-replay", "version": "1", "labels": ["sound", "porosity", "shrinkage", "crack"],
-            "input": {"width": 64, "height": 64, "channels": 1}, "normalisation": {"mean": [0.5], "std": [0.25]},
-            "windowing": "file", "layer": "features.block3", "roi": {"rule": "border", "pixels": 4},
-            "intended_use": "benchmark only", "entry_point": ENTRY_POINT, "entry_point_args": {"width": 4},
-            "weights": "net.pt"}
-    (d / "card.json").write_text(json.dumps(card))
+    write_tiny_model(d, "bench-replay", width=4, seed=1)
     rng = np.random.default_rng(2)
     inputs = []
     for i in range(32):  # two per repeat and one to warm up

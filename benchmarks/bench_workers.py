@@ -9,7 +9,6 @@ copies per input) plus Grad-CAM and gradient saliency. Usage: benchmarks/bench_w
 
 from __future__ import annotations
 
-import json
 import os
 import sys
 import tempfile
@@ -19,28 +18,20 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import numpy as np  # noqa: E402
-import torch  # noqa: E402
 from PIL import Image  # noqa: E402
+from tiny_model import write_tiny_model  # noqa: E402  (beside this file)
 
 from casefile.ledger import Ledger  # noqa: E402
 from casefile.models import load_model  # noqa: E402
 from casefile.pipeline import RunSettings  # noqa: E402
 from casefile.workers import explain_parallel  # noqa: E402
-from demo_cases.nets import tiny_net  # noqa: E402
 from demo_cases.train import ENTRY_POINT  # noqa: E402
 
 RUN = RunSettings(patch=8, stride=2)
 
 
 def scenario(d: Path, n: int) -> tuple[Path, Path, Path]:
-    torch.manual_seed(3)
-    torch.save(tiny_net(width=8).eval().state_dict(), d / "net.pt")
-    card = {"name": "bench-workers", "version": "1", "labels": ["sound", "porosity", "shrinkage", "crack"],
-            "input": {"width": 64, "height": 64, "channels": 1}, "normalisation": {"mean": [0.5], "std": [0.25]},
-            "windowing": "file", "layer": "features.block3", "roi": {"rule": "border", "pixels": 4},
-            "intended_use": "benchmark only", "entry_point": ENTRY_POINT, "entry_point_args": {"width": 8},
-            "weights": "net.pt"}
-    (d / "card.json").write_text(json.dumps(card))
+    write_tiny_model(d, "bench-workers", width=8, seed=3)
     inputs = d / "inputs"
     inputs.mkdir()
     rng = np.random.default_rng(9)
