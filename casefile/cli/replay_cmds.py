@@ -96,6 +96,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     # CASE_ID comes before the options and INPUT after them: positionals may stand on both sides of options
     # (argparse's intermixed parsing, which works for a parser without subcommands of its own, as this one)
     _intermix(sp)
+    sp.usage = ("casefile replay [options] --model FILE --card FILE CASE_ID INPUT\n"
+                "       casefile replay [options] --model FILE --card FILE --all [--since T] [--until T] FOLDER")
     sp.add_argument("targets", metavar="CASE_ID INPUT | FOLDER", nargs="+",
                     help=f"CASE_ID: {CASE_ID_HELP}; INPUT: the file the case was recorded from; with --all, "
                          "FOLDER: a folder of inputs, matched to cases by SHA-256")
