@@ -233,7 +233,7 @@ class Drops:
 
     def notes(self) -> list[str]:
         if self.fell_back is not None:
-            return [f"computed by the plain batched method: {self.fell_back}"]
+            return [f"plain method: {self.fell_back}"]
         return []
 
     def _occluded(self, chunk: list[tuple[int, int]]) -> torch.Tensor:
@@ -254,8 +254,8 @@ class Drops:
                     return None
                 self.plan = trace(self.module, self.x)
             if auto and self.plan.macs_full < AUTO_MIN_MACS:
-                self.fell_back = (f"the model needs {self.plan.macs_full / 1e6:.1f} million multiply-adds per image, "
-                                  f"below the {AUTO_MIN_MACS / 1e6:.0f} million where computing windows saves time")
+                self.fell_back = (f"{self.plan.macs_full / 1e6:.1f} million multiply-adds per image, too few for "
+                                  f"windows to save time (from {AUTO_MIN_MACS / 1e6:.0f} million)")
                 return None
             runner = Runner(self.plan, truncate_share=share)
             pieces = torch.stack([self.filler[0, :, r : r + ph, c : c + pw] for r, c in chunk])

@@ -192,7 +192,7 @@ def test_a_model_that_cannot_be_traced_falls_back_and_says_so():
     x = torch.randn(1, 1, 20, 20)
     r = check_exact(net, x, patch=6, stride=3)
     assert r.mode == "batched" and r.exact
-    assert len(r.notes) == 1 and r.notes[0].startswith("computed by the plain batched method: the model could not")
+    assert len(r.notes) == 1 and r.notes[0].startswith("plain method: the model could not be traced")
 
 
 def test_approximate_modes_say_they_are_approximate():
@@ -334,7 +334,7 @@ def test_auto_computes_incrementally_only_for_a_model_big_enough_to_gain(monkeyp
     net, x = _randomise_bn(Plain(), 24), torch.randn(1, 3, 30, 30)
     small = occlusion(net, x, 0, patch=6, stride=3, return_all=True)  # default mode: auto
     assert small.mode == "batched" and small.exact
-    assert "million multiply-adds per image, below the 100 million" in small.notes[0]
+    assert "million multiply-adds per image, too few for windows to save time (from 100 million)" in small.notes[0]
     monkeypatch.setattr(occ, "AUTO_MIN_MACS", 1)
     big = occlusion(net, x, 0, patch=6, stride=3, return_all=True)
     assert big.mode == "incremental" and big.notes == []

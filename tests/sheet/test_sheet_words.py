@@ -59,9 +59,9 @@ def test_approximate_maps_say_so_with_their_fidelity_setting_in_words():
     assert "exact map (computed incrementally, as changes to one cached run)" in exact
     assert "approximate map (fidelity setting not recorded)" in " ".join(words.params("occlusion", {"exact": False}))
     noted = words.params("occlusion", {**OCCLUSION, "exact": True, "mode": "batched",
-                                       "notes": ["computed by the plain batched method: the model could not be traced"]})
+                                       "notes": ["plain method: the model could not be traced"]})
     assert noted[-2:] == ["exact map (one forward pass per position)",
-                          "computed by the plain batched method: the model could not be traced"]
+                          "plain method: the model could not be traced"]
 
 
 def test_gradcam_and_gradient_parameters():
