@@ -19,6 +19,8 @@ import re
 import secrets
 from typing import Any
 
+from sqlalchemy.engine import Connection
+
 from casefile.errors import ValidationError
 from casefile.ledger import Entry, Ledger, utc_now
 
@@ -105,12 +107,17 @@ def add_reader(ledger: Ledger, reader_id: str, password: str, again: str) -> Ent
         raise ValidationError(f"{what}: the password is longer than {MAX_PASSWORD} characters")
     if password.strip() != password:
         raise ValidationError(f"{what}: the password starts or ends with a space")
-    existing = reader_account(ledger, reader_id)
-    if existing is not None:
-        raise ValidationError(f"{what}: already has an account (seq {existing.seq}); an account is never "
-                              "replaced, so nobody can take over a reader's name")
-    return ledger.append("reader", {"reader": reader_id, "password": hash_password(password),
-                                    "added_at": utc_now()})
+    body = {"reader": reader_id, "password": hash_password(password), "added_at": utc_now()}
+
+    def work(conn: Connection) -> Entry:
+        # looked up under the chain-head lock, so two `reader add` runs for one id cannot both pass
+        existing = reader_account(ledger, reader_id)
+        if existing is not None:
+            raise ValidationError(f"{what}: already has an account (seq {existing.seq}); an account is never "
+                                  "replaced, so nobody can take over a reader's name")
+        return ledger.append_in(conn, "reader", body)
+
+    return ledger.transaction(work)
 
 
 __all__ = ["MIN_PASSWORD", "READER_ID", "READER_ID_RULE", "SCRYPT", "add_reader", "check_reader_id", "confirm_reader",

@@ -186,7 +186,17 @@ def _amended(history: CaseHistory, what: str, reader: str, amends: int) -> Entry
 def record_review(ledger: Ledger, case_id: str, *, reader: str, verdict: str, label: str | None = None,
                   note: str | None = None, amends: int | None = None, draw_id: str | None = None,
                   new_label: bool = False) -> Entry:
-    """Append a reader's verdict on a case as a ``review`` entry (rules in this module's docstring)."""
+    """Append a reader's verdict on a case as a ``review`` entry (rules in this module's docstring).
+
+    The rules are checked under the chain-head lock, in the transaction that appends: two processes
+    recording the same reader's reading of a case for one draw at once cannot both pass."""
+    return ledger.transaction(lambda conn: ledger.append_in(conn, "review", _review_body(
+        ledger, case_id, reader=reader, verdict=verdict, label=label, note=note, amends=amends, draw_id=draw_id,
+        new_label=new_label)))
+
+
+def _review_body(ledger: Ledger, case_id: str, *, reader: str, verdict: str, label: str | None,
+                 note: str | None, amends: int | None, draw_id: str | None, new_label: bool) -> dict[str, Any]:
     what = f"review of {case_id}"
     reader = _person(reader, what, "reader")
     if verdict not in VERDICTS:
@@ -218,7 +228,7 @@ def record_review(ledger: Ledger, case_id: str, *, reader: str, verdict: str, la
         body["amends_seq"] = amends
     if draw_id is not None:
         body["draw_id"] = draw_id
-    return ledger.append("review", body)
+    return body
 
 
 def record_adjudication(ledger: Ledger, case_id: str, *, adjudicator: str, label: str, reason: str,
