@@ -236,6 +236,14 @@ def record_adjudication(ledger: Ledger, case_id: str, *, adjudicator: str, label
     """Append an ``adjudication``: refused unless the case's readers currently disagree with each other
     (within ``draw_id`` when given, else over each reader's latest reading) and the adjudicator is not one
     of them."""
+    # checked under the chain-head lock, so the readings it names are the current ones when it is written
+    return ledger.transaction(lambda conn: ledger.append_in(conn, "adjudication", _adjudication_body(
+        ledger, case_id, adjudicator=adjudicator, label=label, reason=reason, new_label=new_label,
+        draw_id=draw_id)))
+
+
+def _adjudication_body(ledger: Ledger, case_id: str, *, adjudicator: str, label: str, reason: str,
+                       new_label: bool, draw_id: str | None) -> dict[str, Any]:
     what = f"adjudication of {case_id}"
     adjudicator = _person(adjudicator, what, "adjudicator")
     if not isinstance(reason, str) or not reason.strip():
@@ -265,7 +273,7 @@ def record_adjudication(ledger: Ledger, case_id: str, *, adjudicator: str, label
         out["label_is_new"] = True
     if draw_id is not None:
         out["draw_id"] = draw_id
-    return ledger.append("adjudication", out)
+    return out
 
 
 __all__ = ["VERDICTS", "current_readings", "current_reviews", "for_draw", "latest_by_reader", "reader_label",
