@@ -17,6 +17,7 @@ import time
 from collections.abc import Callable, Sequence
 from typing import Any
 
+from casefile.errors import UsageError
 from casefile.ledger import Claims, Ledger
 from casefile.pipeline import (
     BatchSummary,
@@ -78,14 +79,18 @@ def _child(store: str, inputs: list[str], model: str, card: str, run: RunSetting
 def explain_parallel(store: str, inputs: Sequence[str | os.PathLike[str]], model: str, card: str,
                      run: RunSettings | None = None, *, loaded: Any, workers: int, key: str | None = None,
                      sheet_dir: str | None = None, timeout: float = DEFAULT_CLAIM_TIMEOUT,
-                     on_outcome: Callable[[Outcome], None] | None = None) -> BatchSummary:
-    """``workers`` processes on this machine, each with an equal share of its cores as torch threads, each
-    loading ``model`` with ``card`` itself. The caller has made every refusal for the run (preflight,
+                     on_outcome: Callable[[Outcome], None] | None = None,
+                     threads: int | None = None) -> BatchSummary:
+    """``workers`` processes on this machine, each with an equal share of its cores as torch threads (or
+    ``threads`` each), each loading ``model`` with ``card`` itself. The caller has made every refusal for the run (preflight,
     inputs) with ``loaded`` (the same model, loaded once) and opened the ledger once. Inputs of the listing
     done by an earlier run are counted as skipped and not looked at again."""
     ctx = mp.get_context("spawn")
     out = ctx.Queue()
-    threads = max(1, (os.cpu_count() or 1) // workers)
+    if threads is None:
+        threads = max(1, (os.cpu_count() or 1) // workers)
+    elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+        raise UsageError(f"threads per worker must be a whole number of at least 1 (got {threads!r})")
     run = (run or RunSettings()).with_limits()
     summary = BatchSummary()
     settings = preflight(loaded, run)

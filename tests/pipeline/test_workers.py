@@ -22,10 +22,11 @@ import numpy as np
 import pytest
 from PIL import Image
 
+from casefile.errors import UsageError
 from casefile.ledger import Ledger
 from casefile.models import load_model
 from casefile.pipeline import RunSettings
-from casefile.workers import explain_claimed
+from casefile.workers import explain_claimed, explain_parallel
 from demo_cases.train import ENTRY_POINT
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -98,3 +99,17 @@ def test_workers_must_be_a_positive_whole_number(tmp_path, bad):
                            "--model", "m", "--card", "c", "--workers", bad, "x"], capture_output=True, text=True,
                           cwd=ROOT)
     assert done.returncode == 2 and "--workers" in done.stderr and not (tmp_path / "l.db").exists()
+
+
+@pytest.mark.parametrize("threads", [0, -2, 1.5, True])
+def test_threads_per_worker_must_be_a_whole_number_and_nothing_is_claimed(tmp_path, tiny, threads):
+    folder = tmp_path / "inputs"
+    _inputs(folder, 2)
+    store = str(tmp_path / "l.db")
+    Ledger(store).close()
+    loaded = load_model(tiny["weights"], tiny["card"], trusted_entry_points=(ENTRY_POINT,))
+    with pytest.raises(UsageError, match="threads per worker must be a whole number of at least 1"):
+        explain_parallel(store, [folder], str(tiny["weights"]), str(tiny["card"]), RunSettings(patch=8, stride=4),
+                         loaded=loaded, workers=2, threads=threads)
+    with Ledger(store) as led, led.engine.connect() as conn:
+        assert led.count() == 0 and conn.exec_driver_sql("SELECT count(*) FROM claims").scalar() == 0
