@@ -91,7 +91,8 @@ def run_demo(out_dir: str | os.PathLike[str], *, seed: int = 7, n_cases: int = 4
         paths = scen[name]
         # the demo vouches for its own factory, by exact name, and for nothing else
         loaded = load_model(paths["weights"], paths["card"], trusted_entry_points=[ENTRY_POINT])
-        _say(f"{step}/6 explaining {n_cases} cases with the {loaded.card['name']} model …")
+        _say(f"{step}/6 explaining {n_cases} cases with the {loaded.card['name']} model (weights SHA-256 "
+             f"{loaded.digest[:16]}…) …")
         summary = explain_batch(ledger, [scen["dir"] / "inputs"], loaded, run, key=site_key,
                                 sheet_dir=out / "sheets" / name, progress=sys.stderr.isatty())
         _say("    " + summary.text().replace("\n", "\n    "))
