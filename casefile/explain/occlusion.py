@@ -15,6 +15,7 @@ from casefile.errors import ExplainError, one_line
 from ._common import (
     batched_logits,
     call_model,
+    channels_last,
     check_input,
     check_logits,
     model_left_as_found,
@@ -167,7 +168,7 @@ def occlusion(
         )
     rows, cols = positions(h, ph, stride), positions(w, pw, stride)
     spots = [(r, c) for r in rows for c in cols]
-    with model_left_as_found(module), torch.no_grad():
+    with model_left_as_found(module), torch.no_grad(), channels_last(module, x) as x:
         base_logits = check_logits(call_model(module, x))
         t = pick_target(base_logits, target)
         z0 = base_logits[0, t]
