@@ -47,6 +47,32 @@ _PURE = tuple(
 )
 
 
+# torch stores the weights in its zip files uncompressed (TorchScript deflates only its code and debug
+# members), so the declared sizes add up to little more than the file's own: 1.0x for torch.save and
+# torch.export.save, 1.3x for a small TorchScript file (tests/models/test_expansion.py). A member that
+# inflates far beyond its compressed size is a zip bomb, which would make torch allocate its declared
+# size before reading a byte of it
+MAX_EXPANSION = 20  # declared sizes over the file's size
+EXPANSION_SLACK = 1 << 20  # bytes allowed beyond that, for a small file's headers and configs
+
+
+def check_expansion(path: Path) -> None:
+    """Refuse, before torch opens it, a zip file (every torch save format but the legacy pickle) whose
+    members declare more than ``MAX_EXPANSION`` times the file's size once inflated. Not a zip: no check
+    here (torch reads it as a legacy pickle, with ``weights_only``)."""
+    if not zipfile.is_zipfile(path):
+        return
+    try:
+        with zipfile.ZipFile(path) as z:
+            declared = sum(i.file_size for i in z.infolist())
+    except (zipfile.BadZipFile, OSError, ValueError):
+        raise ModelError(f"{path.name}: not a readable model file (a damaged zip archive)") from None
+    size = path.stat().st_size
+    if declared > MAX_EXPANSION * size + EXPANSION_SLACK:
+        raise ModelError(f"{path.name}: its members inflate to {declared:,} bytes from a {size:,}-byte file (more "
+                         f"than {MAX_EXPANSION} times); refused before loading, as a zip bomb would be")
+
+
 def _members(path: Path) -> tuple[zipfile.ZipFile, dict[str, str]]:
     """The archive and its members by name below the top folder torch.export.save writes (``<root>/``)."""
     try:

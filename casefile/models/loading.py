@@ -25,7 +25,7 @@ from torch import nn
 
 from casefile.errors import ModelError, one_line
 from casefile.files import sha256_file
-from casefile.models.archive import check_export_archive, check_export_graph
+from casefile.models.archive import check_expansion, check_export_archive, check_export_graph
 from casefile.models.card import card_digest, read_card
 from casefile.models.preprocess import preprocess_pixels, roi_mask, rules_record
 from casefile.models.trust import ENTRY_POINT, build_module, trusted_names
@@ -152,6 +152,7 @@ def _load_module(model_path: str | Path, card: dict[str, Any], card_file: Path, 
     path, how = weights_file(model_path, card, card_file)
     digest = sha256_file(path)
     pinned = check_pin(card, card_name, path.name, digest)
+    check_expansion(path)
     if how == "entry-point":
         module = _from_entry_point(str(model_path), path, card, card_name, trusted_names(trusted))
         return module, digest, {"format": "entry-point", "entry_point": str(model_path),
