@@ -286,7 +286,8 @@ def crop(v: Patched, starts: Sequence[tuple[int, int]], size: tuple[int, int], p
     padded = v.base
     if top or left or bottom or right:
         padded = F.pad(v.base, (left, right, top, bottom), value=pad_value)
-    out = torch.stack([padded[0, :, r + top : r + top + h, c + left : c + left + w] for r, c in starts])
+    # 4-D slices joined by cat keep the map's memory order (a channels-last map copies whole pixel rows)
+    out = torch.cat([padded[:, :, r + top : r + top + h, c + left : c + left + w] for r, c in starts])
     vh, vw = v.size
     for i, ((r, c), (sr, sc)) in enumerate(zip(starts, v.starts, strict=True)):
         r0, r1 = max(r, sr), min(r + h, sr + vh)
