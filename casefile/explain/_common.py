@@ -146,8 +146,9 @@ def channels_last(module: nn.Module, x: torch.Tensor) -> Iterator[torch.Tensor]:
 
     Only the memory order changes, not a value: PyTorch's operators index tensors by their logical
     shape. Measured on two cores (benchmarks/bench_hygiene.py): forward passes over batches of covered
-    copies ran 1.3x faster for the ResNet-18 layout at 224 px and 1.8x for the demo's TinyNet at 64 px;
-    exact occlusion maps moved by float rounding only (below 1e-7). A model whose forward fails in that
+    copies ran 1.3x faster for the ResNet-18 layout at 224 px and 1.8x for the demo's TinyNet at 64 px,
+    and the incremental method's windows copy whole pixel rows; exact occlusion maps moved by float
+    rounding only (below 1e-7). A model whose forward fails in that
     order (a ``.view`` over a spatial map, custom code that assumes NCHW strides) runs as it is.
     """
     weights = [t for t in itertools.chain(module.parameters(), module.buffers()) if t.dim() == 4]
