@@ -44,11 +44,15 @@ def _seqs_with(ledger: Ledger, name: str, outcome: str) -> set[int]:
         return {int(r[0]) for r in conn.execute(q)}
 
 
-def _checks_by_seq(ledger: Ledger) -> dict[int, list[dict[str, Any]]]:
+def _checks_by_seq(ledger: Ledger, first: int, last: int) -> dict[int, list[dict[str, Any]]]:
+    """The check rows of the cases with seq ``first`` to ``last``, by seq (only that stretch is read)."""
     order = {n: i for i, n in enumerate(CHECK_NAMES)}
     out: dict[int, list[dict[str, Any]]] = {}
-    for r in ledger.rows("case_checks"):
-        out.setdefault(int(r["seq"]), []).append(r)
+    cc = t.case_checks
+    q = select(cc).where(cc.c.seq.between(first, last)).order_by(cc.c.seq)
+    with ledger.engine.connect() as conn:
+        for r in conn.execute(q):
+            out.setdefault(int(r.seq), []).append(dict(r._mapping))
     for rows in out.values():
         rows.sort(key=lambda r: (order.get(r["name"], len(order)), r["name"]))
     return out
@@ -79,7 +83,9 @@ def audit_rows(ledger: Ledger, *, kind: str | None = None, model: str | None = N
         rows = [r for r in rows if int(r["seq"]) in keep]
     if flagged is not None:
         rows = [r for r in rows if bool(r["flagged"]) == flagged]
-    by_seq = _checks_by_seq(ledger)
+    if not rows:
+        return []
+    by_seq = _checks_by_seq(ledger, min(int(r["seq"]) for r in rows), max(int(r["seq"]) for r in rows))
     return [_case_row(r, by_seq.get(int(r["seq"]), [])) for r in rows]
 
 

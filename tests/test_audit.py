@@ -121,3 +121,19 @@ def test_cli_check_option_is_a_usage_error_when_malformed(led, capsys, bad, word
         main(["--store", led.path, "audit", "--check", bad])
     assert info.value.code == 2
     assert words in capsys.readouterr().err.splitlines()[-1]
+
+
+def test_a_filtered_listing_carries_the_same_checks_as_the_whole_one(tmp_path):
+    """audit reads only the checks of the stretch of seqs it lists; each row must still carry its own."""
+    ledger = Ledger(str(tmp_path / "b.db"))
+    outcomes = ("pass", "warn", "fail")
+    for i in range(1, 13):
+        body = case_body(i, when=f"2026-11-{i:02d}T12:00:00Z")
+        body["checks"] = _checks(confidence=outcomes[i % 3], region_focus=outcomes[(i // 3) % 3])
+        ledger.append("case", body)
+    whole = {r["seq"]: r for r in audit_rows(ledger)}
+    part = audit_rows(ledger, since="2026-11-04T00:00:00Z", until="2026-11-09T00:00:00Z")
+    assert [r["seq"] for r in part] == [4, 5, 6, 7, 8]
+    assert all(r["checks"] == whole[r["seq"]]["checks"] and r["flags"] == whole[r["seq"]]["flags"] for r in part)
+    assert whole[5]["checks"] == {"confidence": "fail", "region_focus": "warn"}  # i=5: 5 % 3 = 2, 5 // 3 = 1
+    assert audit_rows(ledger, since="2026-12-01T00:00:00Z") == []
