@@ -14,6 +14,7 @@ Run: ``python benchmarks/bench_hygiene.py`` (about a minute on two cores).
 from __future__ import annotations
 
 import contextlib
+import copy
 import statistics
 import sys
 import time
@@ -57,7 +58,10 @@ def _timer(net: torch.nn.Module, x: torch.Tensor, grad: str) -> Callable[[], flo
 
 def compare(title: str, net: torch.nn.Module, x: torch.Tensor) -> None:
     net = net.eval()
-    cases = {(grad, "contiguous"): _timer(net, x.contiguous(), grad) for grad in ("no_grad", "inference_mode")}
+    nhwc_net = copy.deepcopy(net).to(memory_format=torch.channels_last)  # the same weights, NHWC order
+    x_nhwc = x.contiguous(memory_format=torch.channels_last)
+    cases = {(grad, fmt): _timer(m, xs, grad) for grad in ("no_grad", "inference_mode")
+             for fmt, m, xs in (("contiguous", net, x.contiguous()), ("channels_last", nhwc_net, x_nhwc))}
     times: dict[tuple[str, str], list[float]] = {k: [] for k in cases}
     for _ in range(2):  # warm-up
         for f in cases.values():
@@ -65,19 +69,6 @@ def compare(title: str, net: torch.nn.Module, x: torch.Tensor) -> None:
     for _ in range(REPEATS):  # interleaved, so drift in the machine's load touches every setting alike
         for k, f in cases.items():
             times[k].append(f())
-    # channels_last needs the weights converted too; done after the contiguous runs on the same module
-    net.to(memory_format=torch.channels_last)
-    x_nhwc = x.contiguous(memory_format=torch.channels_last)
-    nhwc = {(grad, "channels_last"): _timer(net, x_nhwc, grad) for grad in ("no_grad", "inference_mode")}
-    for k in nhwc:
-        times[k] = []
-    for _ in range(2):
-        for f in nhwc.values():
-            f()
-    for _ in range(REPEATS):
-        for k, f in nhwc.items():
-            times[k].append(f())
-    net.to(memory_format=torch.contiguous_format)
     base = statistics.median(times[("no_grad", "contiguous")])
     print(f"{title}: a batch of {x.shape[0]} copies, {x.shape[2]} x {x.shape[3]} px, {torch.get_num_threads()} "
           f"torch threads, median of {REPEATS}")

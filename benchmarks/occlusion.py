@@ -76,8 +76,8 @@ def _one(size: int, patch: int, stride: int, mode: str, out: str) -> None:
 
 
 @contextlib.contextmanager
-def _as_given(module: torch.nn.Module, x: torch.Tensor) -> Iterator[torch.Tensor]:
-    yield x
+def _as_given(module: torch.nn.Module, x: torch.Tensor) -> Iterator[tuple[torch.Tensor, object]]:
+    yield x, module(x)
 
 
 def _run(size: int, patch: int, stride: int, mode: str) -> tuple[float, np.ndarray, str, int]:

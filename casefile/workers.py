@@ -82,9 +82,9 @@ def explain_parallel(store: str, inputs: Sequence[str | os.PathLike[str]], model
                      on_outcome: Callable[[Outcome], None] | None = None,
                      threads: int | None = None) -> BatchSummary:
     """``workers`` processes on this machine, each with an equal share of its cores as torch threads (or
-    ``threads`` each), each loading ``model`` with ``card`` itself. The caller has made every refusal for the run (preflight,
-    inputs) with ``loaded`` (the same model, loaded once) and opened the ledger once. Inputs of the listing
-    done by an earlier run are counted as skipped and not looked at again."""
+    ``threads`` each), each loading ``model`` with ``card`` itself. The caller has made every refusal for
+    the run (preflight, inputs) with ``loaded`` (the same model, loaded once) and opened the ledger once.
+    Inputs of the listing done by an earlier run are counted as skipped and not looked at again."""
     ctx = mp.get_context("spawn")
     out = ctx.Queue()
     if threads is None:

@@ -140,35 +140,35 @@ def to_map(t: torch.Tensor) -> np.ndarray:
 
 
 @contextmanager
-def channels_last(module: nn.Module, x: torch.Tensor) -> Iterator[torch.Tensor]:
-    """Run the body with the model's 4-D weights and the input in channels-last (NHWC) memory order, and
-    yield the input to use; every weight's own tensor is put back afterwards, bit for bit.
+def channels_last(module: nn.Module, x: torch.Tensor) -> Iterator[tuple[torch.Tensor, object]]:
+    """Run the body with the model's 4-D weights and the input in channels-last (NHWC) memory order where
+    the model takes it; yield the input to use and the model's output on it (the forward that tried the
+    order, so the caller need not run it again). Every weight's own tensor is put back afterwards.
 
     Only the memory order changes, not a value: PyTorch's operators index tensors by their logical
     shape. Measured on two cores (benchmarks/bench_hygiene.py): forward passes over batches of covered
     copies ran 1.3x faster for the ResNet-18 layout at 224 px and 1.8x for the demo's TinyNet at 64 px,
     and the incremental method's windows copy whole pixel rows; exact occlusion maps moved by float
-    rounding only (below 1e-7). A model whose forward fails in that
-    order (a ``.view`` over a spatial map, custom code that assumes NCHW strides) runs as it is.
+    rounding only (below 1e-7). A model whose forward fails in that order (a ``.view`` over a spatial
+    map, custom code that assumes NCHW strides) runs as it is.
     """
     weights = [t for t in itertools.chain(module.parameters(), module.buffers()) if t.dim() == 4]
     if x.dim() != 4 or not weights:
-        yield x
+        yield x, call_model(module, x)
         return
     kept = [(t, t.data) for t in weights]
     for t in weights:
         t.data = t.data.contiguous(memory_format=torch.channels_last)
     nhwc = x.contiguous(memory_format=torch.channels_last)
     try:
-        with torch.no_grad():
-            call_model(module, nhwc)  # a probe: does the model run in this order at all?
-        taken = True
-    except ExplainError:
-        taken = False
-        for t, data in kept:
-            t.data = data
-    try:
-        yield nhwc if taken else x
+        try:
+            out = call_model(module, nhwc)
+        except ExplainError:  # the model refuses this order: the weights go back now, and it runs as given
+            for t, data in kept:
+                t.data = data
+            yield x, call_model(module, x)
+            return
+        yield nhwc, out
     finally:
         for t, data in kept:
             t.data = data

@@ -14,7 +14,6 @@ from casefile.errors import ExplainError, one_line
 
 from ._common import (
     batched_logits,
-    call_model,
     channels_last,
     check_input,
     check_logits,
@@ -168,9 +167,9 @@ def occlusion(
         )
     rows, cols = positions(h, ph, stride), positions(w, pw, stride)
     spots = [(r, c) for r in rows for c in cols]
-    with model_left_as_found(module), torch.no_grad(), channels_last(module, x) as x_run:
+    with model_left_as_found(module), torch.no_grad(), channels_last(module, x) as (x_run, out):
         nhwc, x = x_run is not x, x_run
-        base_logits = check_logits(call_model(module, x))
+        base_logits = check_logits(out)
         t = pick_target(base_logits, target)
         z0 = base_logits[0, t]
         p0 = torch.softmax(base_logits[0], dim=0)[t]

@@ -66,12 +66,12 @@ def test_channels_last_is_used_where_the_model_takes_it_and_not_where_it_does_no
     x = torch.randn(1, 1, 8, 8)
     small, flat = Small().eval(), ViewFlatten().eval()
     inner = small.body[4].weight  # [8, 6, 3, 3]: the two orders differ (with one channel they coincide)
-    with channels_last(small, x) as y:
+    with channels_last(small, x) as (y, _):
         assert y.is_contiguous(memory_format=torch.channels_last)
         assert inner.is_contiguous(memory_format=torch.channels_last) and not inner.is_contiguous()
     assert inner.is_contiguous()
     ptr = flat.conv.weight.data_ptr()
-    with channels_last(flat, x) as y:  # its .view refuses the NHWC feature map: it runs as given
+    with channels_last(flat, x) as (y, _):  # its .view refuses the NHWC feature map: it runs as given
         assert y is x and flat.conv.weight.data_ptr() == ptr
 
 
